@@ -1,0 +1,20 @@
+"""ident: identify the inertial, friction and rotor-inertia parameters of robot arms."""
+
+__version__ = "0.1.0"
+
+from .errors import DataError, IdentError, ModelError, NumericalError
+from .model import JOINT_TERMS, Robot, load_robot, parse_terms
+from .spatial import from_vector, pseudo_inertia, to_vector
+from .dynamics import (
+    body_poses,
+    energy,
+    forward_dynamics,
+    frame_pose,
+    gravity_torque,
+    inverse_dynamics,
+    jacobian,
+    mass_matrix,
+    velocity_torque,
+    wrench_torque,
+)
+from .regressor import iter_regressor, predict, regressor, stream_regressor

@@ -1,0 +1,45 @@
+"""Atomic file output: every file `ident` writes appears whole or not at all."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from pathlib import Path
+from typing import Iterator
+
+from .errors import IdentError
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
+    """Yield a temporary path beside `path`; rename it onto `path` only if the block succeeds.
+
+    Writers that need a file name (matplotlib, pandas) write to the yielded path. On any exception
+    the temporary file is removed, so no partial output is left behind.
+    """
+    target = Path(path)
+    parent = target.parent if str(target.parent) else Path(".")
+    if not parent.is_dir():
+        raise IdentError(f"{target}: output folder {parent} does not exist")
+    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part" + target.suffix, dir=parent)
+    os.close(fd)
+    tmp_path = Path(tmp)
+    try:
+        yield tmp_path
+        os.replace(tmp_path, target)
+    finally:
+        if tmp_path.exists():
+            tmp_path.unlink()
+
+
+def write_text(path: str | os.PathLike, text: str) -> None:
+    """Write `text` (UTF-8) to `path` atomically."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+
+
+def write_bytes(path: str | os.PathLike, data: bytes) -> None:
+    """Write `data` to `path` atomically."""
+    with atomic_path(path) as tmp:
+        tmp.write_bytes(data)
