@@ -18,3 +18,4 @@ from .dynamics import (
     wrench_torque,
 )
 from .regressor import iter_regressor, predict, regressor, stream_regressor
+from .base import BaseParameters, base_parameters
