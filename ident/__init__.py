@@ -19,3 +19,4 @@ from .dynamics import (
 )
 from .regressor import iter_regressor, predict, regressor, stream_regressor
 from .base import BaseParameters, base_parameters
+from .paramfile import ParameterSet, load_parameters, parameter_set_from_vector, save_parameters
