@@ -15,6 +15,7 @@ from .errors import IdentError
 # Order here is the order in `ident --help`.
 COMMANDS = [
     "model",
+    "logs",
 ]
 
 
