@@ -214,7 +214,7 @@ def estimate_delay(measured, predicted, dt: float, max_delay: float = 0.05) -> n
         raise DataError(f"estimate_delay: dt must be positive, got {dt!r}")
     K = max(1, int(np.ceil(max_delay / dt)))
     n = None
-    corr = None
+    num = den = None
     for a, b in zip(meas, pred):
         a = np.asarray(a, dtype=float)
         b = np.asarray(b, dtype=float)
@@ -226,20 +226,26 @@ def estimate_delay(measured, predicted, dt: float, max_delay: float = 0.05) -> n
             raise DataError("estimate_delay: non-finite torque value")
         if n is None:
             n = a.shape[1]
-            corr = np.zeros((2 * K + 1, n))
+            num = np.zeros((2 * K + 1, n))
+            den = np.zeros((2 * K + 1, n))
         m = a.shape[0]
         if m <= 2 * K + 2:
             continue
         a = a - a.mean(axis=0)
         b = b - b.mean(axis=0)
+        # a fixed window of the measured channel against shifted windows of the prediction,
+        # normalised by each window's energy: by Cauchy-Schwarz the peak is then exactly at the
+        # delay for a noise-free shift (raw overlap sums tilt the peak toward lag zero)
+        aw = a[K : m - K]
         for i, k in enumerate(range(-K, K + 1)):
-            # sum_t measured(t) predicted(t - k)
-            if k >= 0:
-                corr[i] += np.einsum("ij,ij->j", a[k:], b[: m - k])
-            else:
-                corr[i] += np.einsum("ij,ij->j", a[: m + k], b[-k:])
-    if corr is None or not np.any(corr):
+            bw = b[K - k : m - K - k]  # predicted(t - k)
+            num[i] += np.einsum("ij,ij->j", aw, bw)
+            den[i] += np.einsum("ij,ij->j", bw, bw)
+    if num is None or not np.any(den):
         raise NumericalError(f"estimate_delay: segments too short for a search over +-{max_delay:g} s, or torques are constant")
+    if np.any(den[K] == 0):
+        raise NumericalError("estimate_delay: a predicted torque is constant; no delay can be seen")
+    corr = num / np.sqrt(den)
     out = np.zeros(n)
     for j in range(n):
         c = corr[:, j]

@@ -1213,6 +1213,37 @@ def estimate_dataset_delay(dataset: Dataset, predicted: np.ndarray, max_delay: f
     return cond.estimate_delay([s.tau for s in dataset.segments], dataset.split(predicted), float(steps[0]), max_delay)
 
 
+def write_samples(path, dataset: Dataset) -> None:
+    """Write conditioned samples in the default table convention (CSV or Parquet by suffix), atomically.
+
+    Columns: ``segment`` (1-based), ``time`` (s), then per joint ``<joint>.q``, ``.dq``, ``.ddq``,
+    ``.tau`` (SI). Reading the file back splits it at segment boundaries (time gaps).
+    """
+    import pandas as pd
+
+    from .fileio import atomic_path
+
+    p = Path(path)
+    kind = TABLE_SUFFIXES.get(p.suffix.lower())
+    if kind is None:
+        raise DataError(f"{p}: samples are written as .csv or .parquet, not '{p.suffix}'")
+    if dataset.n_samples == 0:
+        raise DataError(f"{p}: no samples to write")
+    cols = {"segment": np.concatenate([np.full(s.n_samples, k + 1) for k, s in enumerate(dataset.segments)]), "time": dataset.t}
+    for ch in CHANNELS:
+        a = getattr(dataset, ch)
+        if a is None:
+            continue
+        for k, j in enumerate(dataset.joint_names):
+            cols[f"{j}.{ch}"] = a[:, k]
+    frame = pd.DataFrame(cols)
+    with atomic_path(p) as tmp:
+        if kind == "csv":
+            frame.to_csv(tmp, index=False, float_format="%.17g")
+        else:
+            frame.to_parquet(tmp, index=False)
+
+
 def describe(dataset: Dataset) -> dict:
     """A JSON-friendly summary: joints, per-file rate/duration/segments, sample counts, warnings."""
     segs = dataset.segments

@@ -110,6 +110,7 @@ def add_parser(sub) -> None:
     add_robot_arguments(p, positional=False)
     add_log_arguments(p)
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    p.add_argument("--out", metavar="FILE", help="also write the conditioned samples (.csv or .parquet, columns segment, time, <joint>.q/.dq/.ddq/.tau)")
     p.set_defaults(func=run)
 
 
@@ -124,6 +125,10 @@ def run(args: argparse.Namespace) -> int:
     else:
         ds = L.load_dataset(args.logs, robot=robot, profile=prof, options=opts)
     summary = L.describe(ds)
+    if args.out:
+        if needs_cutoff:
+            raise IdentError("--out: the samples are not conditioned (no cutoff known); give --cutoff, --max-frequency or --period with --harmonics")
+        L.write_samples(args.out, ds)
     if args.json:
         print_json(summary)
         return 0
