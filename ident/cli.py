@@ -16,6 +16,9 @@ from .errors import IdentError
 COMMANDS = [
     "model",
     "logs",
+    "simulate",
+    "check",
+    "export",
 ]
 
 

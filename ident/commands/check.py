@@ -1,0 +1,72 @@
+"""``ident check ROBOT PARAMS LOG...``: how well identified parameters predict held-out torque."""
+
+from __future__ import annotations
+
+import argparse
+
+from ..paramfile import load_parameters
+from ..validate import validate_dataset
+from .common import add_robot_arguments, print_json, robot_from_args
+from .logs import add_log_arguments, dataset_from_args
+
+EXAMPLE = """\
+examples:
+  ident check arm.urdf identified.yaml heldout.csv --cutoff 10
+  ident check arm.urdf identified.yaml heldout.csv --cutoff 10 --report check.html
+  ident check arm.urdf identified.yaml run3.csv run4.csv --period 10 --harmonics 5 --json
+
+Per joint: RMS of measured minus predicted torque, that RMS as a percentage of the joint's measured
+torque range, R^2 and the largest error (with its time); per link: whether the identified inertial
+parameters are physically consistent (pseudo-inertia positive semidefinite). Samples slower than
+--slow-velocity are left out of a joint's figures when the model has Coulomb friction.
+Exit status 0 also when the fit is poor: read the figures (or --json).
+"""
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser(
+        "check",
+        help="validate identified parameters on held-out logs (torque errors, physical consistency)",
+        description="Predict the torque of held-out logs with identified parameters and print per-joint RMS "
+        "error, RMS relative to the torque range, R^2 and largest error, and per-link physical consistency. "
+        "Optionally write a self-contained HTML report with plots.",
+        epilog=EXAMPLE,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    add_robot_arguments(p)
+    p.add_argument("params", metavar="PARAMS", help="parameter file (YAML) of this robot")
+    p.add_argument("logs", nargs="+", metavar="LOG", help="held-out log files")
+    add_log_arguments(p)
+    p.add_argument("--report", metavar="HTML", help="also write a self-contained HTML report")
+    p.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    p.add_argument("--json", action="store_true", help="print the figures as JSON")
+    p.set_defaults(func=run)
+
+
+def run(args) -> int:
+    robot = robot_from_args(args)
+    ps = load_parameters(args.params, robot)
+    data = dataset_from_args(args, robot)
+    val = validate_dataset(robot, ps, data)
+    if args.report:
+        from ..report import write_report
+
+        write_report(args.report, robot, ps, validation=val, validation_data=data, progress=not (args.quiet or args.json))
+    if args.json:
+        out = val.to_dict()
+        out["warnings"] = list(data.warnings)
+        if args.report:
+            out["report"] = args.report
+        print_json(out)
+    elif not args.quiet:
+        print(f"{robot.name}: {args.params} on {len(args.logs)} held-out log(s), {data.n_samples} samples")
+        print(val.table())
+        for note in val.notes:
+            print(f"note: {note}")
+        for w in data.warnings:
+            print(f"warning: {w}")
+        if not val.all_physical:
+            print("warning: some links are not physically consistent; refit with --method consistent before using the model")
+        if args.report:
+            print(f"report: {args.report}")
+    return 0
