@@ -728,7 +728,8 @@ class _column_source:
                 )
                 self.n_rows = self._table.num_rows
         except Exception as exc:  # pyarrow's ArrowInvalid & co: name the file, keep one line
-            raise DataError(f"{path}: cannot read as {fmt} ({_first_line(exc)})") from None
+            detail = _diagnose_csv(path, columns) if fmt == "csv" else None
+            raise DataError(detail or f"{path}: cannot read as {fmt} ({_first_line(exc)})") from None
 
     def __call__(self, column: str):
         try:
@@ -739,6 +740,31 @@ class _column_source:
         except Exception as exc:
             raise DataError(f"{self.path}: cannot read column '{column}' ({_first_line(exc)})") from None
         return col
+
+
+def _diagnose_csv(path: Path, columns: list[str]) -> str | None:
+    """After a failed fast parse, find the first offending row and column (slow, error path only)."""
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rd = csv.reader(fh)
+            header = [h.strip() for h in next(rd)]
+            idx = {c: header.index(c) for c in columns if c in header}
+            for row_no, row in enumerate(rd, start=1):
+                if not row:
+                    continue
+                if len(row) != len(header):
+                    return f"{path}: data row {row_no} has {len(row)} fields, the header has {len(header)}"
+                for c, i in idx.items():
+                    cell = row[i].strip()
+                    if cell == "":
+                        return f"{path}: column '{c}' has an empty value at data row {row_no}"
+                    try:
+                        float(cell)
+                    except ValueError:
+                        return f"{path}: column '{c}' has a non-numeric value '{cell[:20]}' at data row {row_no}"
+    except (OSError, UnicodeDecodeError, csv.Error, StopIteration) as exc:
+        return f"{path}: cannot read as csv ({_first_line(exc)})"
+    return None
 
 
 def _numeric(col, path: Path, name: str) -> np.ndarray:
@@ -963,6 +989,11 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
     where = f"{seg.source} (t = {seg.t[0]:.6g}..{seg.t[-1]:.6g} s)"
     if cutoff and cutoff >= 0.5 * fs:
         raise DataError(f"cutoff: {cutoff:g} Hz is not below the Nyquist frequency {0.5 * fs:g} Hz of {where}")
+    if opts.decimate > 1:
+        try:  # the low-pass is the anti-alias filter: refuse a factor that would alias
+            cond.decimate(seg.t[:1], opts.decimate, fs, cutoff)
+        except DataError as exc:
+            raise DataError(f"{where}: {exc}") from None
     tau = seg.tau
     # clipped torques: flagged on the raw channel, where the saturation is exact
     clipped = np.zeros(m, dtype=bool)
@@ -1035,7 +1066,7 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
         counts["trimmed"] += int(min(m, 2 * trim))
     if clipped.any():
         spread_n = max(trim, 1)
-        dil = np.convolve(clipped.astype(np.int8), np.ones(2 * spread_n + 1, dtype=np.int8), mode="same") > 0
+        dil = np.convolve(clipped.astype(np.int32), np.ones(2 * spread_n + 1, dtype=np.int32), mode="same") > 0
         counts["clipped"] += int((dil & keep).sum())
         keep &= ~dil
     runs = [(a, b) for a, b in _runs(keep) if b - a >= 3]
