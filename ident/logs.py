@@ -801,6 +801,8 @@ def _read_bag(path: Path, robot, prof: LogProfile) -> RawLog:
     except ImportError:  # pragma: no cover - rosbags is a dependency
         raise DataError("reading ROS bags needs the 'rosbags' package") from None
     where = str(path)
+    if path.suffix.lower() in (".db3", ".mcap") and (path.parent / "metadata.yaml").is_file():
+        path = path.parent  # a ROS 2 bag is its folder (metadata.yaml + storage files)
     msgs = []
     try:
         with AnyReader([path]) as reader:
