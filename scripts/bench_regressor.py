@@ -1,0 +1,139 @@
+"""Regressor throughput and streaming memory, against pin's own regressor as a yardstick.
+
+Prints, for the 7-joint arm of example-robot-data (panda, fingers locked):
+
+* microseconds per sample of ``ident.regressor.iter_regressor`` at N = 100 000 (best of a few runs,
+  after a warm-up so numba compilation is not timed);
+* microseconds per sample of ``pin.computeJointTorqueRegressor`` called once per sample from
+  Python on the same states, and the ratio of the two;
+* peak resident memory of a child process that streams the regressor of N = 1 000 000 samples
+  (consuming each chunk by the Gram-matrix update estimation does), next to the memory of the
+  states themselves.
+
+Usage: ``python scripts/bench_regressor.py [--samples 100000] [--repeat 3] [--memory-samples 1000000]``.
+The machine may be shared: the script reports the best of ``--repeat`` runs and the CPU count.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib.metadata
+import os
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+PANDA = "panda_description/urdf/panda.urdf"
+LOCKED = {"panda_finger_joint1": 0.02, "panda_finger_joint2": 0.02}
+
+
+def panda_path() -> Path:
+    dist = importlib.metadata.distribution("example-robot-data")
+    return Path(dist.locate_file("cmeel.prefix/share/example-robot-data/robots")) / PANDA
+
+
+def states(robot, N: int, seed: int = 0):
+    """Random states (N, n) within the joint limits; velocities and accelerations of a few rad/s(^2)."""
+    rng = np.random.default_rng(seed)
+    lo = np.where(np.isfinite(robot.lower), robot.lower, -np.pi)
+    hi = np.where(np.isfinite(robot.upper), robot.upper, np.pi)
+    q = rng.uniform(lo, hi, (N, robot.n))
+    dq = rng.uniform(-2.0, 2.0, (N, robot.n))
+    ddq = rng.uniform(-5.0, 5.0, (N, robot.n))
+    return q, dq, ddq
+
+
+def time_ident(robot, q, dq, ddq, repeat: int) -> float:
+    from ident.regressor import iter_regressor
+
+    checksum = 0.0
+    for _, Y in iter_regressor(robot, q[:4096], dq[:4096], ddq[:4096]):  # compile / warm caches
+        checksum += Y[0, 0, 0]
+    best = np.inf
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        for _, Y in iter_regressor(robot, q, dq, ddq):
+            checksum += Y[-1, -1, -1]  # touch the chunk so nothing is optimised away
+        best = min(best, time.perf_counter() - t0)
+    return best / q.shape[0] * 1e6
+
+
+def time_pin(q, dq, ddq, repeat: int, n_pin: int) -> float:
+    import pinocchio as pin
+
+    model = pin.buildModelFromUrdf(str(panda_path()))
+    ids = [model.getJointId(j) for j in LOCKED]
+    q_ref = pin.neutral(model)
+    for name, val in LOCKED.items():
+        q_ref[model.joints[model.getJointId(name)].idx_q] = val
+    model = pin.buildReducedModel(model, ids, q_ref)
+    data = model.createData()
+    m = min(n_pin, q.shape[0])
+    best = np.inf
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        for s in range(m):
+            pin.computeJointTorqueRegressor(model, data, q[s], dq[s], ddq[s])
+        best = min(best, time.perf_counter() - t0)
+    return best / m * 1e6
+
+
+def memory_child(N: int) -> None:
+    """Run in a child process: stream the regressor of N samples and print the peak RSS (MB)."""
+    import ident
+    from ident.regressor import iter_regressor
+
+    robot = ident.load_robot(panda_path(), locked=LOCKED)
+    q, dq, ddq = states(robot, N, seed=1)
+    p = robot.n_params()
+    G = np.zeros((p, p))
+    for _, Y in iter_regressor(robot, q, dq, ddq):
+        Yf = Y.reshape(-1, p)
+        G += Yf.T @ Yf
+    peak_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # kB on Linux
+    print(f"{peak_kb / 1024:.1f} {3 * q.nbytes / 1e6:.1f} {np.trace(G):.6e}")
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--samples", type=int, default=100_000, help="samples for the throughput test (default 100000)")
+    ap.add_argument("--pin-samples", type=int, default=20_000, help="samples for the pin loop (default 20000)")
+    ap.add_argument("--repeat", type=int, default=3, help="timed runs; the best is reported (default 3)")
+    ap.add_argument("--memory-samples", type=int, default=1_000_000, help="samples for the memory test (default 1000000; 0 skips)")
+    ap.add_argument("--memory-child", type=int, default=0, help=argparse.SUPPRESS)
+    args = ap.parse_args(argv)
+    if args.memory_child:
+        memory_child(args.memory_child)
+        return 0
+
+    import ident
+    import numba
+
+    robot = ident.load_robot(panda_path(), locked=LOCKED)
+    q, dq, ddq = states(robot, args.samples)
+    print(f"robot: {robot.describe()}; regressor {robot.n} x {robot.n_params()} per sample")
+    print(f"machine: {os.cpu_count()} CPUs, numba threads {numba.get_num_threads()}, load average {os.getloadavg()[0]:.2f}")
+    ours = time_ident(robot, q, dq, ddq, args.repeat)
+    print(f"ident iter_regressor      N={args.samples:>8d}: {ours:7.3f} us/sample (best of {args.repeat})")
+    try:
+        theirs = time_pin(q, dq, ddq, args.repeat, args.pin_samples)
+    except ImportError:
+        print("pin not installed: no reference timing")
+    else:
+        print(f"pin computeJointTorqueRegressor loop N={min(args.pin_samples, args.samples):>8d}: {theirs:7.3f} us/sample (best of {args.repeat})")
+        print(f"speed-up ident / pin loop: {theirs / ours:.2f}x")
+    if args.memory_samples:
+        out = subprocess.run(
+            [sys.executable, __file__, "--memory-child", str(args.memory_samples)],
+            check=True, capture_output=True, text=True,
+        ).stdout.split()
+        print(f"streaming N={args.memory_samples}: peak RSS {float(out[0]):.0f} MB (of which q, dq, ddq {float(out[1]):.0f} MB)")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
