@@ -17,8 +17,12 @@ COMMANDS = [
     "model",
     "logs",
     "simulate",
+    "fit",
+    "payload",
     "check",
     "export",
+    "excite",
+    "demo",
 ]
 
 
