@@ -924,7 +924,8 @@ def _uniform_pieces(raw: RawLog, opts: LogOptions, warnings: list[str], counts: 
     if opts.windows:
         t0 = t[0]
         for a, b in opts.windows:
-            sel = np.flatnonzero((t - t0 >= a) & (t - t0 <= b))
+            eps = 1e-9 * max(1.0, abs(b))  # unit conversions (ms -> s) must not move a bound sample out
+            sel = np.flatnonzero((t - t0 >= a - eps) & (t - t0 <= b + eps))
             if sel.size < 2:
                 warnings.append(f"{raw.source}: window [{a:g}, {b:g}] s holds fewer than 2 samples (file lasts {t[-1] - t0:.6g} s); skipped")
                 continue

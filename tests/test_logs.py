@@ -416,3 +416,34 @@ def test_malformed_tables_raise_only_project_errors(header, rows, sorted_time):
                 continue
             assert all(np.all(np.isfinite(s.q)) and np.all(np.isfinite(s.tau)) for s in ds.segments)
             assert all(np.all(np.diff(s.t) > 0) for s in ds.segments)
+
+
+# --------------------------------------------------------------------------------------------
+# the example profile shipped in datasets_demo/examples reads the controller export it describes
+# --------------------------------------------------------------------------------------------
+
+
+def test_example_profile_reads_its_controller_export(tmp_path):
+    demo = Path(__file__).resolve().parent.parent / "datasets_demo"
+    robot = ident.load_robot(demo / "sprout6.urdf")
+    ref = pd.read_csv(demo / "sprout6_excite.csv")
+    # build the export the profile's comments describe, from the demo log
+    gear_kt = {"base_yaw": 120 * 0.11, "shoulder_pitch": 120 * 0.11, "elbow_pitch": 100 * 0.075}
+    sign = {"wrist_roll": -1.0}
+    offset = {"base_yaw": 90.0}
+    exp = {"stamp_ms": ref["time"] * 1000.0}
+    for k, j in enumerate(robot.joint_names):
+        a = f"A{k + 1}"
+        exp[f"{a}_deg"] = sign.get(j, 1.0) * np.degrees(ref[f"{j}.q"]) + offset.get(j, 0.0)
+        if j in gear_kt:
+            exp[f"{a}_amp"] = ref[f"{j}.tau"] / gear_kt[j]
+        else:
+            exp[f"{a}_Nm"] = sign.get(j, 1.0) * ref[f"{j}.tau"]
+    path = to_csv(pd.DataFrame(exp), tmp_path / "cell_trace.csv")
+    prof = demo / "examples" / "profile.yaml"
+    raw = L.read_logs(path, robot=robot, profile=prof)
+    sel = (ref["time"] >= 0.5 - 1e-9) & (ref["time"] <= 29.9 + 1e-9)
+    np.testing.assert_allclose(raw.q, ref.loc[sel, [f"{j}.q" for j in robot.joint_names]].to_numpy(), atol=1e-12)
+    np.testing.assert_allclose(raw.tau, ref.loc[sel, [f"{j}.tau" for j in robot.joint_names]].to_numpy(), atol=1e-9)
+    ds = L.load_dataset(path, robot=robot, profile=prof)
+    assert ds.info["cutoff"] == pytest.approx(2.5) and ds.segments[0].dt == pytest.approx(0.01)
