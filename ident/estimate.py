@@ -1,0 +1,584 @@
+"""Estimators: ordinary and weighted least squares, and the physically consistent fit.
+
+All three work on the compressed problem of :mod:`ident.compress` (per-joint triangles of
+``[Y_b | tau]``), so they cost the same whatever the number of samples.
+
+* ``ols``: beta = argmin ||Y_b beta - tau||^2, covariance sigma^2 (Y_b^T Y_b)^-1 with
+  sigma^2 = RSS / (rows - b).
+* ``wls``: each joint's rows are weighted by 1/sigma_j, sigma_j estimated from that joint's OLS
+  residuals (Gautier 1997); covariance s^2 (W^T W)^-1 of the weighted problem (s^2 ~ 1).
+* ``consistent``: full per-body parameters whose 4x4 pseudo-inertias are positive semidefinite
+  (Wensing, Kim and Slotine 2017), friction and armature coefficients >= 0, optional mass, COM
+  and total-mass bounds; solved with cvxpy (Clarabel by default) on the WLS-weighted compressed
+  data. The regulariser is the log-det (Bregman) divergence between each body's pseudo-inertia
+  and the prior's, d(J, J0) = -log det J + tr(J0^-1 J) + const (Lee, Wensing and Park 2020); it is
+  convex, keeps every pseudo-inertia strictly positive definite, and is invariant to the choice
+  of link frame. How it only decides what the data cannot see:
+
+  1. *Exact stage*: minimise sum_i d(J_i, J0_i) subject to the constraints and to
+     ``P pi = beta_wls`` (the base parameters equal the unconstrained estimate). If this is
+     feasible, the WLS estimate is also the constrained least-squares optimum, and the regulariser
+     picks the realization among all with those base parameters: it decides the unidentifiable
+     directions only.
+  2. *Trade-off stage* (when the WLS estimate is not realizable, or the data are rank deficient):
+     minimise ||W (Y_b P pi - tau)||^2 / s^2 + gamma sum_i d(J_i, J0_i). In these chi-square units
+     a small gamma (default 1e-3) moves a well-identified base parameter by a tiny fraction of
+     its standard deviation, while directions the data do not see are set by the prior. Joint
+     terms have no prior; in directions the data do not see they are pulled to zero by a ridge of
+     the same small weight.
+
+  The fit returns the full per-body realization (mass, COM, inertia at COM) and its base
+  parameters ``P pi``. Its reported covariance is the WLS covariance (the constraints only
+  shrink the feasible set, so this is a conservative statement of the uncertainty).
+
+The result object :class:`FitResult` prints a statsmodels-style table and turns into a
+:class:`ident.paramfile.ParameterSet`.
+"""
+
+from __future__ import annotations
+
+import time
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.linalg
+
+from .base import BaseParameters
+from .compress import Compressor, Reduced, compress
+from .errors import IdentError, NumericalError
+from .model import Robot
+from .paramfile import BaseTable, ParameterSet, parameter_set_from_vector
+from .spatial import from_vector, pseudo_inertia
+
+METHODS = ("ols", "wls", "consistent")
+#: Default joint terms (the CLI's default too).
+DEFAULT_TERMS = ("fv", "fc", "ia")
+#: Relative standard deviation (%) above which a base parameter is flagged (common practice: 10 %).
+POOR_REL_STD = 10.0
+#: Scaled singular values below this fraction of the largest make the data rank deficient.
+RANK_TOL = 1e-10
+#: Scaled singular values below this fraction of the largest are reported as unexcited directions.
+UNEXCITED_TOL = 1e-4
+#: Default weight of the log-det regulariser in the trade-off stage (chi-square units).
+REGULARIZATION = 1e-3
+#: Pseudo-inertias with smallest eigenvalue below -PHYSICAL_TOL x largest are physically impossible.
+PHYSICAL_TOL = 1e-9
+_NONNEG_TERMS = ("fv", "fc", "ia")
+
+
+class ExcitationWarning(UserWarning):
+    """The data leave some base-parameter directions (nearly) unexcited."""
+
+
+@dataclass
+class Bounds:
+    """Optional constraints of the consistent fit (per body, by body name).
+
+    mass : {body: (min kg, max kg)}; com : {body: ((xmin, ymin, zmin), (xmax, ymax, zmax))} m in
+    the body frame; total_mass : kg, the sum of the identified bodies' masses.
+    """
+
+    mass: dict = field(default_factory=dict)
+    com: dict = field(default_factory=dict)
+    total_mass: float | None = None
+
+    def empty(self) -> bool:
+        return not self.mass and not self.com and self.total_mass is None
+
+    def check(self, robot: Robot) -> None:
+        """Validate names and numbers; one-line errors naming the body."""
+        for kind, table in (("mass bound", self.mass), ("COM bound", self.com)):
+            for body in table:
+                if body not in robot.body_names:
+                    raise IdentError(f"{kind}: '{body}' is not a body of {robot.name} (bodies: {', '.join(robot.body_names)})")
+        for body, (lo, hi) in self.mass.items():
+            if not (np.isfinite(lo) and np.isfinite(hi) and 0 <= lo <= hi):
+                raise IdentError(f"mass bound of '{body}': need 0 <= min <= max, got ({lo}, {hi})")
+        for body, (lo, hi) in self.com.items():
+            lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+            if lo.shape != (3,) or hi.shape != (3,) or not np.all(np.isfinite(lo)) or not np.all(np.isfinite(hi)) or np.any(lo > hi):
+                raise IdentError(f"COM bound of '{body}': need two triples with min <= max, got {lo.tolist()}, {hi.tolist()}")
+        if self.total_mass is not None and not (np.isfinite(self.total_mass) and self.total_mass > 0):
+            raise IdentError(f"total mass: must be a positive number of kg, got {self.total_mass}")
+
+
+@dataclass
+class FitResult:
+    """The outcome of :func:`fit`.
+
+    Attributes
+    ----------
+    robot, terms, base : model, joint-term codes and base-parameter set used.
+    method : "ols", "wls" or "consistent".
+    beta : (b,) base parameter estimates (for ``consistent``: the base parameters of `full`).
+    cov : (b, b) covariance of the base parameters (for ``consistent``: the WLS covariance).
+    full : (p,) a full parameter vector reproducing `beta` (regressor column order). For OLS and
+        WLS: the prior moved by the smallest Euclidean change with those base parameters (it may be
+        physically impossible: see `physical`); for ``consistent``: the constrained realization.
+    sigma : (n,) per-joint noise standard deviation estimated from the OLS residuals (N m).
+    residual_rms : (n,) RMS of the residual of this fit, per joint (N m or N).
+    condition : condition number of the column-scaled base regressor.
+    unexcited : descriptions of the base-parameter directions the data barely excite.
+    samples, sources : amount and origin of the data.
+    solver : details of the consistent fit (stage, status, time), empty otherwise.
+    warnings : every warning raised on the way.
+    """
+
+    robot: Robot
+    terms: tuple[str, ...]
+    base: BaseParameters
+    method: str
+    beta: np.ndarray
+    cov: np.ndarray
+    full: np.ndarray
+    sigma: np.ndarray
+    residual_rms: np.ndarray
+    condition: float
+    unexcited: list[str]
+    samples: int
+    sources: list[str]
+    solver: dict = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def names(self) -> list[str]:
+        """(b,) base parameter names."""
+        return list(self.base.names)
+
+    @property
+    def std(self) -> np.ndarray:
+        """(b,) standard deviations of the base parameters."""
+        return np.sqrt(np.maximum(np.diag(self.cov), 0.0))
+
+    @property
+    def rel_std(self) -> np.ndarray:
+        """(b,) relative standard deviation in percent, 100 std / |beta| (inf where beta = 0)."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(self.beta != 0, 100.0 * self.std / np.abs(self.beta), np.inf)
+
+    @property
+    def poorly_identified(self) -> np.ndarray:
+        """(b,) bool: relative standard deviation above :data:`POOR_REL_STD` percent."""
+        return self.rel_std > POOR_REL_STD
+
+    @property
+    def inertial(self) -> np.ndarray:
+        """(n, 10) per-body parameters of the full realization."""
+        return self.full[: 10 * self.robot.n].reshape(self.robot.n, 10)
+
+    @property
+    def joint_params(self) -> dict[str, np.ndarray]:
+        """{term code: (n,) coefficients} of the full realization."""
+        n, nt = self.robot.n, len(self.terms)
+        t = self.full[10 * n :].reshape(n, nt) if nt else np.zeros((n, 0))
+        return {c: t[:, k].copy() for k, c in enumerate(self.terms)}
+
+    @property
+    def min_eigenvalue(self) -> np.ndarray:
+        """(n,) smallest eigenvalue of each body's pseudo-inertia (kg m^2; < 0 is impossible)."""
+        return np.linalg.eigvalsh(pseudo_inertia(self.inertial))[:, 0]
+
+    @property
+    def physical(self) -> np.ndarray:
+        """(n,) bool: each body of the full realization is physically realizable."""
+        ev = np.linalg.eigvalsh(pseudo_inertia(self.inertial))
+        return ev[:, 0] >= -PHYSICAL_TOL * np.maximum(np.abs(ev[:, -1]), 1e-300)
+
+    def predict(self, q, dq, ddq) -> np.ndarray:
+        """Model torque (N, n) of the full realization at (N, n) states."""
+        from .regressor import predict
+
+        return predict(self.robot, q, dq, ddq, self.full, self.terms)
+
+    def diagnostics(self) -> dict:
+        """Plain-type summary of the fit quality (goes into the parameter file)."""
+        joints = self.robot.joint_names
+        d = {
+            "condition_number": float(self.condition),
+            "residual_rms": {j: float(v) for j, v in zip(joints, self.residual_rms)},
+            "noise_std": {j: float(v) for j, v in zip(joints, self.sigma)},
+            "poorly_identified": [n for n, bad in zip(self.names, self.poorly_identified) if bad],
+            "unexcited_directions": list(self.unexcited),
+            "physical_links": {b: bool(ok) for b, ok in zip(self.robot.body_names, self.physical)},
+            "warnings": list(self.warnings),
+        }
+        if self.solver:
+            d["solver"] = dict(self.solver)
+        return d
+
+    def to_parameter_set(self, data: dict | None = None) -> ParameterSet:
+        """The :class:`ParameterSet` of this fit (full realization, base table, method, diagnostics)."""
+        method = {"name": self.method, "terms": list(self.terms)}
+        if self.method == "ols":
+            method["realization"] = "prior moved by the smallest change that reproduces the base estimates (may be non-physical)"
+        elif self.method == "wls":
+            method["realization"] = "prior moved by the smallest change that reproduces the base estimates (may be non-physical)"
+            method["weights"] = "per joint 1/sigma_j from OLS residuals"
+        else:
+            method["regularizer"] = "log-det divergence to the prior pseudo-inertias"
+            method.update({k: v for k, v in self.solver.items() if k in ("stage", "solver", "regularization")})
+        info = {"samples": int(self.samples), "sources": list(self.sources)}
+        if data:
+            info.update(data)
+        table = BaseTable(self.names, self.beta, self.std, self.base.relations())
+        return parameter_set_from_vector(self.robot, self.full, self.terms, base=table, method=method, data=info, diagnostics=self.diagnostics())
+
+    def summary(self) -> str:
+        """A text report: header with the diagnostics, then one row per base parameter."""
+        from .commands.common import format_table
+
+        r = self.robot
+        lines = [
+            f"Fit of {r.name}: method {self.method}, {self.samples} samples from {len(self.sources)} log(s), "
+            f"{self.base.n_base} base parameters (terms: {', '.join(self.terms) or 'none'})",
+            f"Condition number (column-scaled): {self.condition:.4g}",
+        ]
+        if self.solver:
+            lines.append("Consistent fit: " + ", ".join(f"{k} {v}" for k, v in self.solver.items() if k in ("stage", "status", "seconds")))
+        lines.append(format_table(
+            ["joint", "residual RMS", "noise std"],
+            [[j, f"{a:.4g}", f"{s:.4g}"] for j, a, s in zip(r.joint_names, self.residual_rms, self.sigma)],
+            "lrr",
+        ))
+        lines.append("")
+        rows = []
+        for name, b, s, rs, bad in zip(self.names, self.beta, self.std, self.rel_std, self.poorly_identified):
+            rows.append([name, f"{b: .6g}", f"{s:.3g}", "inf" if not np.isfinite(rs) else f"{rs:.3g}", "poor" if bad else ""])
+        lines.append(format_table(["parameter", "estimate", "std", "rel.std %", "flag"], rows, "lrrrl"))
+        lines.append("")
+        lines.append(format_table(
+            ["link", "mass kg", "COM x,y,z m", "physical"],
+            [_link_row(b, pi, ok) for b, pi, ok in zip(r.body_names, self.inertial, self.physical)],
+            "lrll",
+        ))
+        if self.unexcited:
+            lines.append("")
+            lines.append("Directions the data barely excite (set by the prior in a consistent fit):")
+            lines += [f"  {u}" for u in self.unexcited]
+        if self.warnings:
+            lines.append("")
+            lines += [f"warning: {w}" for w in self.warnings]
+        return "\n".join(lines)
+
+
+def _link_row(body, pi, ok):
+    if pi[0] > 0:
+        _, c, _ = from_vector(pi)
+        com = ", ".join(f"{x:.4g}" for x in c)
+    else:
+        com = "(undefined: mass <= 0)"
+    return [body, f"{pi[0]:.4g}", com, "yes" if ok else "NO"]
+
+
+# ----------------------------------------------------------------------------------------------
+# least squares on the reduced problem
+
+
+@dataclass
+class _LS:
+    beta: np.ndarray
+    cov: np.ndarray
+    condition: float
+    singular: np.ndarray  # scaled singular values
+    Vt: np.ndarray  # scaled right singular vectors (rows)
+    scale: np.ndarray  # column norms
+    rank_deficient: bool
+
+
+def _solve(red: Reduced, names: list[str], allow_deficient: bool = False) -> _LS:
+    """Least squares on ``min ||R beta - z||^2``: estimate, covariance and conditioning."""
+    R, z = red.R, red.z
+    b = R.shape[0]
+    scale = np.linalg.norm(R, axis=0)
+    dead = np.flatnonzero(scale == 0)
+    safe = np.where(scale > 0, scale, 1.0)
+    U, s, Vt = np.linalg.svd(R / safe, full_matrices=False)
+    cond = float(s[0] / s[-1]) if s[-1] > 0 else float("inf")
+    deficient = dead.size > 0 or s[-1] < RANK_TOL * s[0]
+    dof = red.rows - b
+    if dof <= 0:
+        raise NumericalError(f"not enough data: {red.rows} equations for {b} base parameters")
+    if deficient:
+        if not allow_deficient:
+            what = [names[k] for k in dead] if dead.size else _direction(Vt[-1], safe, names)
+            raise NumericalError(
+                f"the data do not determine every base parameter (scaled condition number {cond:.3g}); "
+                f"unexcited: {what if isinstance(what, str) else ', '.join(what)}; move the joints more or use method 'consistent'"
+            )
+        keep = s > RANK_TOL * s[0]
+        beta = (Vt[keep].T @ ((U[:, keep].T @ z) / s[keep])) / safe
+        r = R @ beta - z
+        sigma2 = (r @ r + red.rho**2) / dof
+        cov = np.full((b, b), np.nan)
+        return _LS(beta, cov, cond, s, Vt, safe, True)
+    beta = scipy.linalg.solve_triangular(R, z, check_finite=False)
+    Rinv = scipy.linalg.solve_triangular(R, np.eye(b), check_finite=False)
+    sigma2 = red.rho**2 / dof
+    cov = sigma2 * (Rinv @ Rinv.T)
+    return _LS(beta, cov, cond, s, Vt, safe, False)
+
+
+def _direction(v_scaled: np.ndarray, scale: np.ndarray, names: list[str], top: int = 4) -> str:
+    """Readable direction in base-parameter space, e.g. ``0.71 link7.xxR - 0.70 link7.yy``."""
+    v = v_scaled / scale
+    v = v / np.abs(v).max()
+    idx = np.argsort(-np.abs(v))[:top]
+    terms = [f"{'-' if v[k] < 0 else '+'} {abs(v[k]):.2g} {names[k]}" for k in idx if abs(v[k]) > 1e-3]
+    text = " ".join(terms)
+    return text[2:] if text.startswith("+ ") else text
+
+
+def _unexcited(ls: _LS, names: list[str]) -> list[str]:
+    out = []
+    for k in np.flatnonzero(ls.singular < UNEXCITED_TOL * ls.singular[0]):
+        out.append(f"{_direction(ls.Vt[k], ls.scale, names)} (relative singular value {ls.singular[k] / ls.singular[0]:.2g})")
+    return out
+
+
+def _joint_sigma(comp: Compressor, beta: np.ndarray) -> np.ndarray:
+    """Per-joint noise std from residuals, each joint charged its share of the b parameters."""
+    b = comp.n_base
+    rows = comp.rows.astype(float)
+    dof = rows - b * rows / rows.sum()
+    if np.any(dof <= 0):
+        raise NumericalError(f"not enough data: {int(rows.min())} equations for joint {comp.robot.joint_names[int(np.argmin(rows))]} and {b} base parameters")
+    return np.sqrt(comp.joint_rss(beta) / dof)
+
+
+def _weights(comp: Compressor, sigma: np.ndarray) -> np.ndarray:
+    # Floor: a joint whose residual is exactly zero (noiseless data) would get an infinite weight.
+    rms_tau = np.sqrt(comp.sum_tau2 / np.maximum(comp.rows, 1))
+    floor = 1e-12 * np.maximum(rms_tau, 1e-300)
+    return 1.0 / np.maximum(sigma, floor)
+
+
+# ----------------------------------------------------------------------------------------------
+# public entry points
+
+
+def fit(robot: Robot, data, method: str = "ols", terms=DEFAULT_TERMS, *, bounds: Bounds | None = None, prior=None,
+        regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None) -> FitResult:
+    """Identify the base parameters (and a full realization) of `robot` from logged data.
+
+    Parameters
+    ----------
+    robot : the model.
+    data : a data set from :func:`ident.logs.load_dataset`, a tuple ``(q, dq, ddq, tau)`` of
+        (N, n) arrays in SI units (rad, rad/s, rad/s^2, N m; m and N for prismatic joints), or a
+        list of those (several logs are combined).
+    method : "ols", "wls" or "consistent" (see the module docstring).
+    terms : joint terms (codes fv, fc, fo, ia).
+    bounds : optional :class:`Bounds` (consistent fit only).
+    prior : prior inertial parameters (n, 10) or a :class:`ParameterSet` (default: the robot
+        description's values), used by the consistent fit's regulariser and the OLS realization.
+    regularization : weight of the log-det regulariser in the trade-off stage.
+    solver : cvxpy solver name for the consistent fit.
+    progress : optional callable ``progress(samples_done, samples_total)``.
+    base : base-parameter set (default: computed for robot and terms).
+
+    Returns
+    -------
+    FitResult
+    """
+    _check_method(method)
+    comp = compress(robot, data, terms, base=base, progress=progress)
+    return fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver)
+
+
+def _check_method(method: str) -> None:
+    if method not in METHODS:
+        raise IdentError(f"method: '{method}' is not one of {', '.join(METHODS)}")
+
+
+def fit_compressed(comp: Compressor, method: str = "ols", *, bounds: Bounds | None = None, prior=None,
+                   regularization: float = REGULARIZATION, solver: str = "CLARABEL") -> FitResult:
+    """:func:`fit` on data already compressed into a :class:`ident.compress.Compressor`."""
+    _check_method(method)
+    robot, bp = comp.robot, comp.base
+    bounds = bounds or Bounds()
+    if not bounds.empty() and method != "consistent":
+        raise IdentError("mass, COM and total-mass bounds need method 'consistent'")
+    bounds.check(robot)
+    if not (np.isfinite(regularization) and regularization > 0):
+        raise IdentError(f"regularization: must be a positive number, got {regularization}")
+    prior_full = _prior_vector(robot, comp.terms, prior)
+    names = list(bp.names)
+    msgs: list[str] = []
+
+    ls = _solve(comp.reduce(), names, allow_deficient=(method == "consistent"))
+    sigma = _joint_sigma(comp, ls.beta)
+    unexcited = _unexcited(ls, names)
+    if unexcited:
+        msg = f"{len(unexcited)} base-parameter direction(s) barely excited by the data: " + "; ".join(unexcited)
+        msgs.append(msg)
+        warnings.warn(msg, ExcitationWarning, stacklevel=2)
+    result = ls
+    if method in ("wls", "consistent"):
+        result = _solve(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
+    P = bp.projection
+    solver_info: dict = {}
+    if method == "consistent":
+        red_w = comp.reduce(_weights(comp, sigma))
+        full, solver_info = _consistent(robot, comp.terms, P, red_w, result, prior_full, bounds, regularization, solver)
+        beta = P @ full
+        cov = result.cov
+    else:
+        beta = result.beta
+        cov = result.cov
+        full = prior_full + np.linalg.pinv(P) @ (beta - P @ prior_full)
+    if result.rank_deficient:
+        msgs.append("the data are rank deficient: no covariance; the consistent fit's prior decides the unexcited directions")
+    rms = np.sqrt(comp.joint_rss(beta) / np.maximum(comp.rows, 1))
+    res = FitResult(
+        robot=robot, terms=comp.terms, base=bp, method=method, beta=beta, cov=cov, full=full, sigma=sigma,
+        residual_rms=rms, condition=ls.condition, unexcited=unexcited, samples=comp.samples,
+        sources=list(comp.sources), solver=solver_info, warnings=msgs,
+    )
+    bad = [b for b, ok in zip(robot.body_names, res.physical) if not ok]
+    if bad:
+        res.warnings.append(f"physically impossible link(s) in the realization: {', '.join(bad)} (pseudo-inertia not positive semidefinite; use method 'consistent')")
+    return res
+
+
+def _prior_vector(robot: Robot, terms, prior) -> np.ndarray:
+    nt = len(terms)
+    if prior is None:
+        inertial = robot.prior
+    elif isinstance(prior, ParameterSet):
+        inertial = prior.check_robot(robot, where="prior").inertial
+    else:
+        inertial = robot.check_inertial(prior)
+    return np.concatenate([np.asarray(inertial, float).reshape(-1), np.zeros(robot.n * nt)])
+
+
+# ----------------------------------------------------------------------------------------------
+# the physically consistent fit
+
+
+def _regularized_prior(J0: np.ndarray) -> np.ndarray:
+    """Make each prior pseudo-inertia positive definite (massless or degenerate bodies in a
+    description would make the log-det divergence undefined): lift its spectrum to at least
+    1e-4 of its trace, with a floor of 1e-6 for a body that has no mass at all."""
+    out = np.empty_like(J0)
+    for i, J in enumerate(J0):
+        ev, V = np.linalg.eigh(0.5 * (J + J.T))
+        floor = max(1e-4 * max(ev.sum(), 0.0), 1e-6)
+        out[i] = (V * np.maximum(ev, floor)) @ V.T
+    return out
+
+
+def _pi_of_J(J) -> list:
+    """cvxpy expressions of the 10 parameters of a 4x4 pseudo-inertia variable (linear)."""
+    S = J[:3, :3]
+    return [
+        J[3, 3], J[0, 3], J[1, 3], J[2, 3],
+        S[1, 1] + S[2, 2], -S[0, 1], -S[0, 2], S[0, 0] + S[2, 2], -S[1, 2], S[0, 0] + S[1, 1],
+    ]
+
+
+def _sqrtm(J: np.ndarray) -> np.ndarray:
+    ev, V = np.linalg.eigh(J)
+    return (V * np.sqrt(ev)) @ V.T
+
+
+def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: Bounds, gamma: float, solver: str):
+    wls_full = prior_full + np.linalg.pinv(P) @ (wls.beta - P @ prior_full)
+    import cvxpy as cp
+
+    n, nt = robot.n, len(terms)
+    b = P.shape[0]
+    J0 = _regularized_prior(pseudo_inertia(prior_full[: 10 * n].reshape(n, 10)))
+    # Preconditioning: each pseudo-inertia is J_i = J0_i^(1/2) X_i J0_i^(1/2), so the decision
+    # variables X_i are O(1) (the prior is X_i = I) whatever the link's size, and the divergence
+    # d(J_i, J0_i) = -log det X_i + tr X_i + const. Joint terms are scaled by their data columns.
+    roots = [_sqrtm(J) for J in J0]
+    Xs = [cp.Variable((4, 4), PSD=True) for _ in range(n)]
+    Js = [roots[i] @ Xs[i] @ roots[i] for i in range(n)]
+    A = red_w.R @ P  # (b, p): weighted data rows in the full parameters
+    parts = [cp.hstack(_pi_of_J(J)) for J in Js]
+    t = None
+    if nt:
+        # Joint terms in units of the unconstrained estimate's magnitudes, so u is O(1).
+        t_ls = np.abs(wls_full[10 * n :])
+        tscale = np.maximum(t_ls, 1e-2 * t_ls.max()) if t_ls.max() > 0 else np.ones(n * nt)
+        u = cp.Variable(n * nt)
+        t = cp.multiply(tscale, u)
+        parts.append(t)
+    x = cp.hstack(parts)
+    cons = []
+    if nt:
+        for k, code in enumerate(terms):
+            if code in _NONNEG_TERMS:
+                cons.append(u[k::nt] >= 0)
+    for body, (lo, hi) in bounds.mass.items():
+        i = robot.body_names.index(body)
+        cons += [Js[i][3, 3] >= lo, Js[i][3, 3] <= hi]
+    for body, (lo, hi) in bounds.com.items():
+        i = robot.body_names.index(body)
+        m, h = Js[i][3, 3], Js[i][:3, 3]
+        cons += [h >= m * np.asarray(lo, float), h <= m * np.asarray(hi, float)]
+    if bounds.total_mass is not None:
+        cons.append(sum(J[3, 3] for J in Js) == bounds.total_mass)
+    div = sum(-cp.log_det(X) + cp.trace(X) for X in Xs)
+    info = {"solver": solver, "regularization": gamma}
+    t0 = time.perf_counter()
+    full = None
+    if not wls.rank_deficient:
+        # Equality rows scaled to O(1) so the solver's feasibility tolerance is relative.
+        rs = 1.0 / np.maximum(np.abs(P).max(axis=1) * np.maximum(np.abs(wls.beta), 1e-3), 1e-12)
+        prob = cp.Problem(cp.Minimize(div), cons + [cp.multiply(rs, P @ x) == rs * wls.beta])
+        status = _solve_problem(prob, solver)
+        if status in ("optimal", "optimal_inaccurate") and x.value is not None:
+            full = _polish(np.asarray(x.value, float), P, wls.beta, n)
+            info.update(stage="exact", status=status)
+    if full is None:
+        dof = max(red_w.rows - b, 1)
+        s2 = red_w.rho**2 / dof
+        # Floor: noiseless data would make the data term's curvature unbounded and the SDP
+        # numerically hopeless; a noise level of 1e-4 of the (weighted) RMS torque is far below
+        # any real sensor.
+        s2 = max(s2, 1e-8 * (float(red_w.z @ red_w.z) + red_w.rho**2) / red_w.rows)
+        obj = cp.sum_squares((A / np.sqrt(s2)) @ x - red_w.z / np.sqrt(s2)) + gamma * div
+        if nt:
+            obj = obj + gamma * cp.sum_squares(u)
+        prob = cp.Problem(cp.Minimize(obj), cons)
+        status = _solve_problem(prob, solver)
+        if status not in ("optimal", "optimal_inaccurate") or x.value is None:
+            raise NumericalError(f"consistent fit: solver {solver} ended with status '{status}' (check the bounds: they may be infeasible)")
+        full = np.asarray(x.value, float)
+        info.update(stage="trade-off", status=status)
+    info["seconds"] = round(time.perf_counter() - t0, 3)
+    if info["status"] == "optimal_inaccurate":
+        warnings.warn("consistent fit: the solver reports an inaccurate optimum", RuntimeWarning, stacklevel=3)
+    return full, info
+
+
+def _solve_problem(prob, solver: str) -> str:
+    import cvxpy as cp
+
+    try:
+        with warnings.catch_warnings():
+            # cvxpy warns about inaccurate solutions; the status is checked by the caller.
+            warnings.simplefilter("ignore", UserWarning)
+            prob.solve(solver=solver)
+    except cp.error.SolverError as exc:
+        if "not installed" in str(exc) or "not recognized" in str(exc).lower():
+            raise IdentError(f"solver: {exc}") from None
+        return "solver_error"
+    except ValueError as exc:
+        raise IdentError(f"solver: {exc}") from None
+    return prob.status
+
+
+def _polish(x: np.ndarray, P: np.ndarray, beta: np.ndarray, n: int) -> np.ndarray:
+    """Remove the solver's tiny equality residual (minimum-norm step) if it keeps every body
+    physical, so the exact stage reproduces the WLS base parameters to rounding error."""
+    step = np.linalg.lstsq(P, beta - P @ x, rcond=None)[0]
+    y = x + step
+    ev = np.linalg.eigvalsh(pseudo_inertia(y[: 10 * n].reshape(n, 10)))
+    ok = np.all(ev[:, 0] >= -PHYSICAL_TOL * np.abs(ev[:, -1]))
+    return y if ok else x
+
+
+__all__ = ["Bounds", "ExcitationWarning", "FitResult", "fit", "fit_compressed", "METHODS", "DEFAULT_TERMS"]
