@@ -677,7 +677,7 @@ def _read_table(path: Path, fmt: str, robot, prof: LogProfile) -> RawLog:
         if wanted[ch][0] is None:
             arrays[ch] = None
             continue
-        a = np.empty((m, n))
+        a = np.empty((m, n), order="F")  # column-major: each column is written and filtered contiguously
         for k, (j, col) in enumerate(zip(model, wanted[ch])):
             spec = _channel_spec(prof, j, ch)
             f = _factor(spec, ch, prof, jt[k], f"{path}: column '{col}'")

@@ -395,9 +395,9 @@ _CELLS = st.one_of(
 )
 
 
-@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=120, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(
-    header=st.lists(st.sampled_from(_HEADERS), min_size=0, max_size=6),
+    header=st.one_of(st.just(["time", "a.q", "a.tau"]), st.lists(st.sampled_from(_HEADERS), min_size=0, max_size=6)),
     rows=st.lists(st.lists(_CELLS, min_size=0, max_size=7), min_size=0, max_size=40),
     sorted_time=st.booleans(),
 )
