@@ -1288,11 +1288,25 @@ def describe(dataset: Dataset) -> dict:
                        rate=(1.0 / s.dt if s.n_samples > 1 else None)) for s in segs],
         files=dataset.info.get("files", []),
         dropped={k: v for k, v in dataset.info.get("counts", {}).items() if k != "read"},
+        ranges=_ranges(dataset),
         noise_var=None if dataset.noise_var is None else dataset.noise_var.tolist(),
         cutoff=dataset.info.get("cutoff"),
         conditioned=dataset.info.get("conditioned"),
         warnings=list(dataset.warnings),
     )
+
+
+def _ranges(dataset: Dataset) -> dict:
+    """Per joint and channel: [min, max] over the samples (SI), to spot unit or sign mistakes."""
+    out = {}
+    for ch in CHANNELS:
+        parts = [getattr(s, ch) for s in dataset.segments]
+        if not parts or any(p is None for p in parts):
+            continue
+        lo = np.min([p.min(axis=0) for p in parts], axis=0)
+        hi = np.max([p.max(axis=0) for p in parts], axis=0)
+        out[ch] = {j: [float(lo[k]), float(hi[k])] for k, j in enumerate(dataset.joint_names)}
+    return out
 
 
 def _first_line(exc: BaseException) -> str:

@@ -157,6 +157,13 @@ def _text(ds: L.Dataset, s: dict, robot, raw_only: bool) -> str:
     if seg_rows:
         shown = seg_rows if len(seg_rows) <= 20 else seg_rows[:10] + [["...", "", "", "", "", ""]] + seg_rows[-5:]
         lines.append(format_table(["#", "source", "start s", "end s", "samples", "rate Hz"], shown, "rlrrrr"))
+    rg = s["ranges"]
+    if rg:
+        chans = [c for c in ("q", "dq", "ddq", "tau") if c in rg]
+        rows = [[j] + [f"{rg[c][j][0]:.4g} .. {rg[c][j][1]:.4g}" for c in chans] for j in s["joints"]]
+        units = {"q": "q rad|m", "dq": "dq rad/s|m/s", "ddq": "ddq rad/s^2|m/s^2", "tau": "tau N m|N"}
+        lines.append("ranges of the samples used (SI):")
+        lines.append(format_table(["joint"] + [units[c] for c in chans], rows, "l" + "r" * len(chans)))
     dropped = {k: v for k, v in s["dropped"].items() if v}
     labels = dict(outside_windows="outside time windows", short="in too-short pieces", trimmed="trimmed at segment ends (filter edges)",
                   clipped="clipped torque (and neighbours)", delay_edges="lost to the delay shift", decimated="removed by decimation",
