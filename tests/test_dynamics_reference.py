@@ -227,7 +227,7 @@ def random_physical(n: int, rng) -> np.ndarray:
     for k in range(n):
         A = rng.normal(size=(3, 3))
         Q, _ = np.linalg.qr(A)
-        ev = rng.uniform(0.01, 0.1, 3)
+        ev = np.sort(rng.uniform(0.01, 0.1, 3))
         ev[2] = min(ev[2], 0.9 * (ev[0] + ev[1]))  # triangle inequality
         out[k] = ident.to_vector(rng.uniform(0.5, 3.0), rng.normal(0.0, 0.1, 3), Q @ np.diag(ev) @ Q.T)
     return out
