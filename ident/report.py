@@ -25,7 +25,7 @@ from .validate import Validation, link_checks
 #: Relative standard deviation (percent) above which a base parameter is flagged (common practice: 10 %).
 POOR_REL_STD = 10.0
 #: Most points drawn per line in the time plots (decimated for a light file).
-MAX_POINTS = 4000
+MAX_POINTS = 2500
 
 _CSS = """
 body{font-family:system-ui,-apple-system,Segoe UI,Helvetica,Arial,sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222}
@@ -60,7 +60,7 @@ def _png(fig) -> str:
     import matplotlib.pyplot as plt
 
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=90, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=80)
     plt.close(fig)
     data = base64.b64encode(buf.getvalue()).decode("ascii")
     return f'<img alt="figure" src="data:image/png;base64,{data}">'
@@ -92,7 +92,7 @@ def _fig_validation(robot: Robot, val: Validation) -> str:
     n = len(val.joint_names)
     t = _plot_time(val.t)
     stride = max(1, t.size // MAX_POINTS)
-    fig, axes = plt.subplots(n, 2, figsize=(12, 2.1 * n), squeeze=False, gridspec_kw={"width_ratios": [3, 1.2]})
+    fig, axes = plt.subplots(n, 2, figsize=(12, 2.1 * n), squeeze=False, gridspec_kw={"width_ratios": [3, 1.2]}, layout="constrained")
     for j, name in enumerate(val.joint_names):
         unit, _ = _units(robot, j)
         ax = axes[j, 0]
@@ -112,7 +112,6 @@ def _fig_validation(robot: Robot, val: Validation) -> str:
         ax2.set_ylabel("samples", fontsize=8)
         ax2.set_title(f"RMS {val.rms[j]:.3g} {unit}, R\u00b2 {val.r2[j]:.3f}", fontsize=8)
         ax2.grid(alpha=0.3)
-    fig.tight_layout()
     return _png(fig)
 
 
@@ -123,7 +122,7 @@ def _fig_coverage(robot: Robot, q: np.ndarray, dq: np.ndarray) -> str:
     import matplotlib.pyplot as plt
 
     n = robot.n
-    fig, axes = plt.subplots(1, 2, figsize=(12, 0.45 * n + 1.4))
+    fig, axes = plt.subplots(1, 2, figsize=(12, 0.45 * n + 1.6), layout="constrained")
     y = np.arange(n)
     lo, hi = robot.lower, robot.upper
     for j in range(n):
@@ -142,7 +141,6 @@ def _fig_coverage(robot: Robot, q: np.ndarray, dq: np.ndarray) -> str:
         ax.grid(alpha=0.3, axis="x")
     axes[0].legend(fontsize=7, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2, frameon=False)
     axes[1].legend(fontsize=7, loc="lower left", bbox_to_anchor=(0, 1.0), ncol=2, frameon=False)
-    fig.tight_layout()
     return _png(fig)
 
 
