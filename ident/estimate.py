@@ -6,7 +6,9 @@ All three work on the compressed problem of :mod:`ident.compress` (per-joint tri
 * ``ols``: beta = argmin ||Y_b beta - tau||^2, covariance sigma^2 (Y_b^T Y_b)^-1 with
   sigma^2 = RSS / (rows - b).
 * ``wls``: each joint's rows are weighted by 1/sigma_j, sigma_j estimated from that joint's OLS
-  residuals (Gautier 1997); covariance s^2 (W^T W)^-1 of the weighted problem (s^2 ~ 1).
+  residuals (Gautier 1997), then once more from the first WLS fit's residuals (the OLS residual
+  of a quiet joint is inflated by the noisier joints); covariance s^2 (W^T W)^-1 of the weighted
+  problem (s^2 ~ 1).
 * ``consistent``: full per-body parameters whose 4x4 pseudo-inertias are positive semidefinite
   (Wensing, Kim and Slotine 2017), friction and armature coefficients >= 0, optional mass, COM
   and total-mass bounds; solved with cvxpy (Clarabel by default) on the WLS-weighted compressed
@@ -116,7 +118,8 @@ class FitResult:
     full : (p,) a full parameter vector reproducing `beta` (regressor column order). For OLS and
         WLS: the prior moved by the smallest Euclidean change with those base parameters (it may be
         physically impossible: see `physical`); for ``consistent``: the constrained realization.
-    sigma : (n,) per-joint noise standard deviation estimated from the OLS residuals (N m).
+    sigma : (n,) per-joint noise standard deviation estimated from the residuals (N m): of the OLS
+        fit for ``ols``, of the first WLS fit otherwise.
     residual_rms : (n,) RMS of the residual of this fit, per joint (N m or N).
     condition : condition number of the column-scaled base regressor.
     unexcited : descriptions of the base-parameter directions the data barely excite.
@@ -415,6 +418,10 @@ def fit_compressed(comp: Compressor, method: str = "ols", *, bounds: Bounds | No
         warnings.warn(msg, ExcitationWarning, stacklevel=2)
     result = ls
     if method in ("wls", "consistent"):
+        # One refinement: sigma_j from the OLS residuals is inflated on a quiet joint by the
+        # error the noisy joints put into the shared parameters; the WLS residuals fix that.
+        result = _solve(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
+        sigma = _joint_sigma(comp, result.beta)
         result = _solve(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
     P = bp.projection
     solver_info: dict = {}
