@@ -183,9 +183,10 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
     used = {base, "dh0"}
     for i, row in enumerate(rows):
         place = f"joints[{i}]"
+        if isinstance(row, dict) and isinstance(row.get("name"), str) and row["name"].strip():
+            place = f"joint '{row['name']}'"  # name the joint in messages as soon as we can
         row = rd.mapping(row, place, _JOINT_KEYS, ("name", "type", "a", "alpha", "d", "theta"))
         jname = rd.name(row["name"], place + ".name")
-        place = f"joint '{jname}'"
         jtype = row["type"]
         if jtype not in ("revolute", "prismatic"):
             rd.fail(place + ".type", f"expected 'revolute' or 'prismatic', got {jtype!r}")
