@@ -256,3 +256,39 @@ def test_inverse_dynamics_with_other_parameters(pair):
         assert_close(M[s], Mp[np.ix_(vi, vi)], f"CRBA state {s}")
     # forward dynamics undoes inverse dynamics (pin.aba checks the same above)
     assert_close(acc, ddq, "forward(inverse(q''))")
+
+
+def test_streamed_and_threaded_regressor_equal_the_full_one():
+    # Chunks of any size, the serial and the threaded kernel must all give the same regressor.
+    from ident import kernels
+    from ident.model import kernel_arrays
+    from ident.regressor import _term_codes, iter_regressor
+
+    pair = make_pair(*CASES["baxter_branches"])
+    r = pair.robot
+    q, dq, ddq = random_states(r, 1500, np.random.default_rng(23))
+    dq[::7, 3] = 0.0  # sign(0) = 0 in the Coulomb column
+    Y = ident.regressor(r, q, dq, ddq, "all")
+    for chunk in (1, 97, 1024):
+        got = np.empty_like(Y)
+        for sl, Yc in iter_regressor(r, q, dq, ddq, "all", chunk=chunk):
+            assert Yc.shape[0] <= chunk
+            got[sl] = Yc
+        np.testing.assert_array_equal(got, Y)
+    args = (q, dq, ddq, *kernel_arrays(r), r.ancestors, -r.gravity, _term_codes("all"))
+    serial, threaded = np.full_like(Y, np.nan), np.full_like(Y, np.nan)
+    kernels._regressor_serial(*args, serial)
+    kernels._regressor_parallel(*args, threaded)
+    np.testing.assert_array_equal(serial, Y)
+    np.testing.assert_array_equal(threaded, Y)
+    # the joint-term columns: fv q', fc sign(q'), fo 1, ia q'' on the joint's own row only
+    p0 = 10 * r.n
+    block = Y[:, :, p0:].reshape(len(q), r.n, r.n, 4)
+    for j in range(r.n):
+        np.testing.assert_array_equal(block[:, j, j], np.stack([dq[:, j], np.sign(dq[:, j]), np.ones(len(q)), ddq[:, j]], 1))
+        others = np.delete(block[:, j], j, axis=1)
+        assert not others.any()
+    # and with the description's parameters plus joint terms, Y pi is the full inverse dynamics
+    jp = {"fv": np.full(r.n, 0.3), "fc": np.full(r.n, 0.8), "fo": np.full(r.n, -0.1), "ia": np.full(r.n, 0.05)}
+    pi = np.concatenate([r.prior.reshape(-1), np.stack([jp[c] for c in ("fv", "fc", "fo", "ia")], 1).reshape(-1)])
+    assert_close(ident.predict(r, q, dq, ddq, pi, "all"), ident.inverse_dynamics(r, q, dq, ddq, joint_params=jp), "Y pi with joint terms")
