@@ -23,6 +23,7 @@ N_JOINTS = 7
 RATE = 1000.0  # Hz
 FREQS = np.array([0.1, 0.2, 0.3, 0.4, 0.5])  # Hz: an excitation of 5 harmonics of 0.1 Hz
 OPTIONS = {"period": 10.0, "harmonics": 5, "average": False, "decimate": 10}
+AVERAGED = {"period": 10.0, "harmonics": 5}  # 360 periods averaged into one, with the noise variance
 
 
 def generate(folder: Path, hours: float) -> tuple[Path, Path, int]:
@@ -54,17 +55,23 @@ def generate(folder: Path, hours: float) -> tuple[Path, Path, int]:
     return pq_path, csv_path, rows
 
 
-def child(path: str) -> None:
+def child(path: str, averaged: bool) -> None:
     """Load + condition `path`, print timing and peak memory as JSON (run in a fresh process)."""
     t0 = time.perf_counter()
     import ident.logs as L
 
     t1 = time.perf_counter()
-    ds = L.load_dataset(path, options=OPTIONS)
+    ds = L.load_dataset(path, options=AVERAGED if averaged else OPTIONS)
     t2 = time.perf_counter()
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     print(json.dumps(dict(seconds=t2 - t1, import_seconds=t1 - t0, peak_mb=peak_mb, samples=ds.n_samples,
                           segments=len(ds.segments), cutoff=ds.info["cutoff"], warnings=len(ds.warnings))))
+
+
+def _rows(path: Path) -> int:
+    import pyarrow.parquet as pq
+
+    return pq.ParquetFile(path).metadata.num_rows
 
 
 def main() -> int:
@@ -72,9 +79,10 @@ def main() -> int:
     ap.add_argument("--hours", type=float, default=1.0, help="log length (default 1 hour = 3.6 M rows)")
     ap.add_argument("--keep", metavar="DIR", help="write the test files here and keep them")
     ap.add_argument("--child", metavar="PATH", help=argparse.SUPPRESS)
+    ap.add_argument("--averaged", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args()
     if args.child:
-        child(args.child)
+        child(args.child, args.averaged)
         return 0
     tmp = None
     if args.keep:
@@ -85,19 +93,24 @@ def main() -> int:
         folder = Path(tmp.name)
     try:
         t0 = time.perf_counter()
-        pq_path, csv_path, rows = generate(folder, args.hours)
-        print(f"generated {rows:,} rows x {N_JOINTS} joints (time, q, tau) in {time.perf_counter() - t0:.1f} s: "
+        pq_path, csv_path = folder / "hour.parquet", folder / "hour.csv"
+        rows = int(round(args.hours * 3600 * RATE))
+        if args.keep and pq_path.is_file() and csv_path.is_file() and _rows(pq_path) == rows:
+            print(f"reusing {pq_path} and {csv_path}")
+        else:
+            pq_path, csv_path, rows = generate(folder, args.hours)
+        print(f"data: {rows:,} rows x {N_JOINTS} joints (time, q, tau), ready in {time.perf_counter() - t0:.1f} s: "
               f"Parquet {pq_path.stat().st_size / 1e6:.0f} MB, CSV {csv_path.stat().st_size / 1e6:.0f} MB")
-        print(f"conditioning: {OPTIONS}")
+        print(f"conditioning: {OPTIONS}; 'parquet avg': {AVERAGED}")
         results = {}
-        for label, path in (("parquet", pq_path), ("csv", csv_path)):
-            out = subprocess.run([sys.executable, __file__, "--child", str(path)], capture_output=True, text=True)
+        for label, path, extra in (("parquet", pq_path, []), ("csv", csv_path, []), ("parquet avg", pq_path, ["--averaged"])):
+            out = subprocess.run([sys.executable, __file__, "--child", str(path)] + extra, capture_output=True, text=True)
             if out.returncode:
                 print(f"{label}: FAILED\n{out.stderr}")
                 return 1
             r = json.loads(out.stdout.strip().splitlines()[-1])
             results[label] = r
-            print(f"{label:8s}: load + condition {r['seconds']:6.2f} s (import {r['import_seconds']:.2f} s), "
+            print(f"{label:11s}: load + condition {r['seconds']:6.2f} s (import {r['import_seconds']:.2f} s), "
                   f"peak memory {r['peak_mb']:7.0f} MB, {r['samples']:,} samples out, cutoff {r['cutoff']:g} Hz, "
                   f"{r['segments']} segment(s), {r['warnings']} warning(s)")
         p = results["parquet"]

@@ -144,13 +144,13 @@ def test_delay_estimate_recovers_sub_sample_delay():
     meas = np.stack([np.interp(t - d, t, pred[:, j]) for j, d in enumerate(true)], 1)
     meas += 0.01 * rng.standard_normal(meas.shape)
     est = C.estimate_delay(meas, pred, dt, max_delay=0.02)
-    np.testing.assert_allclose(est, true, atol=2e-4)
+    np.testing.assert_allclose(est, true, atol=5e-5)  # 1/20 of a sample
     # applying the estimate realigns the channels
     fixed, valid = C.shift(t, meas, est)
     assert np.sqrt(np.mean((fixed - pred)[valid] ** 2)) < 0.012
     # segment lists give the same answer as one array
     est2 = C.estimate_delay([meas[:5000], meas[5000:]], [pred[:5000], pred[5000:]], dt, 0.02)
-    np.testing.assert_allclose(est2, true, atol=2e-4)
+    np.testing.assert_allclose(est2, true, atol=5e-5)
 
 
 def test_delay_estimate_reports_trouble():
