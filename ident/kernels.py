@@ -241,21 +241,41 @@ def _regressor_parallel(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, o
         _regressor_block(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, out, start, stop)
 
 
+_THREADING = "auto"
+
+
+def set_threading(mode: str) -> str:
+    """Choose how the regressor kernel uses numba's threads; returns the previous mode.
+
+    ``"auto"`` (default): threads only when :func:`use_threads` finds idle cores; ``"on"``: always
+    for chunks of 8 blocks or more; ``"off"``: never. The thread count itself is numba's
+    (``NUMBA_NUM_THREADS`` or ``numba.set_num_threads``). Results are identical in every mode.
+    """
+    global _THREADING
+    if mode not in ("auto", "on", "off"):
+        from .errors import IdentError
+
+        raise IdentError(f"threading mode: expected 'auto', 'on' or 'off', got {mode!r}")
+    previous, _THREADING = _THREADING, mode
+    return previous
+
+
 def use_threads(N: int) -> bool:
     """Whether a chunk of N samples goes to numba's thread pool.
 
-    Only when numba has more than one thread (``NUMBA_NUM_THREADS``, or ``numba.set_num_threads``),
-    the chunk has at least 8 blocks, and the 1-minute load average leaves a core idle: on a busy
-    machine the join waits for a descheduled thread and one thread is faster.
+    Only when numba has more than one thread, the chunk has at least 8 blocks and, in ``"auto"``
+    mode, the 1-minute load average leaves a core idle: on a busy machine the join waits for a
+    descheduled thread and one thread is faster (measured on a shared 2-core machine).
     """
-    threads = numba.get_num_threads()
-    if threads < 2 or N < 8 * _BLOCK:
+    if _THREADING == "off" or numba.get_num_threads() < 2 or N < 8 * _BLOCK:
         return False
+    if _THREADING == "on":
+        return True
     try:
         load = os.getloadavg()[0]
     except OSError:
         return True
-    return load < (os.cpu_count() or threads) - 0.5
+    return load < (os.cpu_count() or 1) - 0.5
 
 
 def regressor_chunk(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, out):

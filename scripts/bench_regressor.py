@@ -3,7 +3,8 @@
 Prints, for the 7-joint arm of example-robot-data (panda, fingers locked):
 
 * microseconds per sample of ``ident.regressor.iter_regressor`` at N = 100 000 (best of a few runs,
-  after a warm-up so numba compilation is not timed);
+  after a warm-up so numba compilation is not timed), on one thread, on all of numba's threads,
+  and with the automatic rule of ``ident.kernels.use_threads`` (threads only when cores are idle);
 * microseconds per sample of ``pin.computeJointTorqueRegressor`` called once per sample from
   Python on the same states, and the ratio of the two;
 * peak resident memory of a child process that streams the regressor of N = 1 000 000 samples
@@ -47,18 +48,24 @@ def states(robot, N: int, seed: int = 0):
     return q, dq, ddq
 
 
-def time_ident(robot, q, dq, ddq, repeat: int) -> float:
+def time_ident(robot, q, dq, ddq, repeat: int, mode: str) -> float:
+    """Best time per sample (us) of iter_regressor over the whole log with threading `mode`."""
+    from ident import kernels
     from ident.regressor import iter_regressor
 
-    checksum = 0.0
-    for _, Y in iter_regressor(robot, q[:4096], dq[:4096], ddq[:4096]):  # compile / warm caches
-        checksum += Y[0, 0, 0]
-    best = np.inf
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        for _, Y in iter_regressor(robot, q, dq, ddq):
-            checksum += Y[-1, -1, -1]  # touch the chunk so nothing is optimised away
-        best = min(best, time.perf_counter() - t0)
+    previous = kernels.set_threading(mode)
+    try:
+        checksum = 0.0
+        for _, Y in iter_regressor(robot, q[:4096], dq[:4096], ddq[:4096]):  # compile / warm caches
+            checksum += Y[0, 0, 0]
+        best = np.inf
+        for _ in range(repeat):
+            t0 = time.perf_counter()
+            for _, Y in iter_regressor(robot, q, dq, ddq):
+                checksum += Y[-1, -1, -1]  # touch the chunk so nothing is optimised away
+            best = min(best, time.perf_counter() - t0)
+    finally:
+        kernels.set_threading(previous)
     return best / q.shape[0] * 1e6
 
 
@@ -117,15 +124,24 @@ def main(argv=None) -> int:
     q, dq, ddq = states(robot, args.samples)
     print(f"robot: {robot.describe()}; regressor {robot.n} x {robot.n_params()} per sample")
     print(f"machine: {os.cpu_count()} CPUs, numba threads {numba.get_num_threads()}, load average {os.getloadavg()[0]:.2f}")
-    ours = time_ident(robot, q, dq, ddq, args.repeat)
-    print(f"ident iter_regressor      N={args.samples:>8d}: {ours:7.3f} us/sample (best of {args.repeat})")
+    from ident import kernels
+
+    print(f"threads chosen by the automatic rule for a {2048}-sample chunk now: {kernels.use_threads(2048)}")
+    results = {}
+    for mode, label in (("off", "1 thread"), ("on", f"{numba.get_num_threads()} threads"), ("auto", "automatic")):
+        if mode == "on" and numba.get_num_threads() < 2:
+            continue
+        results[mode] = time_ident(robot, q, dq, ddq, args.repeat, mode)
+        print(f"ident iter_regressor ({label:>9s}) N={args.samples:>8d}: {results[mode]:7.3f} us/sample (best of {args.repeat})")
+    ours = min(results.values())
     try:
         theirs = time_pin(q, dq, ddq, args.repeat, args.pin_samples)
     except ImportError:
         print("pin not installed: no reference timing")
     else:
         print(f"pin computeJointTorqueRegressor loop N={min(args.pin_samples, args.samples):>8d}: {theirs:7.3f} us/sample (best of {args.repeat})")
-        print(f"speed-up ident / pin loop: {theirs / ours:.2f}x")
+        for mode, t in results.items():
+            print(f"speed-up ident ({mode}) / pin loop: {theirs / t:.2f}x")
     if args.memory_samples:
         out = subprocess.run(
             [sys.executable, __file__, "--memory-child", str(args.memory_samples)],
