@@ -24,10 +24,13 @@ All three work on the compressed problem of :mod:`ident.compress` (per-joint tri
      directions only.
   2. *Trade-off stage* (when the WLS estimate is not realizable, or the data are rank deficient):
      minimise ||W (Y_b P pi - tau)||^2 / s^2 + gamma sum_i d(J_i, J0_i). In these chi-square units
-     a small gamma (default 1e-3) moves a well-identified base parameter by a tiny fraction of
-     its standard deviation, while directions the data do not see are set by the prior. Joint
-     terms have no prior; in directions the data do not see they are pulled to zero by a ridge of
-     the same small weight.
+     the data term grows with the number of samples while the regulariser does not: near the
+     prior, d is about half the squared relative change of the pseudo-inertia, so gamma = 1 (the
+     default) acts like a prior that trusts the description to about 100 %. A well-identified base
+     parameter (standard deviation far below its size) does not feel it; directions the data
+     barely see are set by the prior. Joint
+     terms have no prior; a ridge a million times weaker still keeps a term the data never see
+     (a joint that does not move) at zero.
 
   The fit returns the full per-body realization (mass, COM, inertia at COM) and its base
   parameters ``P pi``. Its reported covariance is the WLS covariance (the constraints only
@@ -62,8 +65,10 @@ POOR_REL_STD = 10.0
 RANK_TOL = 1e-10
 #: Scaled singular values below this fraction of the largest are reported as unexcited directions.
 UNEXCITED_TOL = 1e-4
-#: Default weight of the log-det regulariser in the trade-off stage (chi-square units).
-REGULARIZATION = 1e-3
+#: Default weight of the log-det regulariser in the trade-off stage (chi-square units): like a
+#: prior that trusts each link's description values to about 100 % (common practice for CAD
+#: values is tens of percent; see the module docstring).
+REGULARIZATION = 1.0
 #: Pseudo-inertias with smallest eigenvalue below -PHYSICAL_TOL x largest are physically impossible.
 PHYSICAL_TOL = 1e-9
 _NONNEG_TERMS = ("fv", "fc", "ia")
@@ -116,8 +121,8 @@ class FitResult:
     beta : (b,) base parameter estimates (for ``consistent``: the base parameters of `full`).
     cov : (b, b) covariance of the base parameters (for ``consistent``: the WLS covariance).
     full : (p,) a full parameter vector reproducing `beta` (regressor column order). For OLS and
-        WLS: the prior moved by the smallest Euclidean change with those base parameters (it may be
-        physically impossible: see `physical`); for ``consistent``: the constrained realization.
+        WLS: the realization closest to the prior (see :func:`realization`; it may be physically
+        impossible: see `physical`); for ``consistent``: the constrained realization.
     sigma : (n,) per-joint noise standard deviation estimated from the residuals (N m): of the OLS
         fit for ``ols``, of the first WLS fit otherwise.
     residual_rms : (n,) RMS of the residual of this fit, per joint (N m or N).
@@ -214,9 +219,9 @@ class FitResult:
         """The :class:`ParameterSet` of this fit (full realization, base table, method, diagnostics)."""
         method = {"name": self.method, "terms": list(self.terms)}
         if self.method == "ols":
-            method["realization"] = "prior moved by the smallest change that reproduces the base estimates (may be non-physical)"
+            method["realization"] = "closest to the prior (log-det metric) among those with the estimated base parameters; may be non-physical"
         elif self.method == "wls":
-            method["realization"] = "prior moved by the smallest change that reproduces the base estimates (may be non-physical)"
+            method["realization"] = "closest to the prior (log-det metric) among those with the estimated base parameters; may be non-physical"
             method["weights"] = "per joint 1/sigma_j from OLS residuals"
         else:
             method["regularizer"] = "log-det divergence to the prior pseudo-inertias"
@@ -433,7 +438,7 @@ def fit_compressed(comp: Compressor, method: str = "ols", *, bounds: Bounds | No
     else:
         beta = result.beta
         cov = result.cov
-        full = prior_full + np.linalg.pinv(P) @ (beta - P @ prior_full)
+        full = realization(robot, P, beta, prior_full)
     if result.rank_deficient:
         msgs.append("the data are rank deficient: no covariance; the consistent fit's prior decides the unexcited directions")
     rms = np.sqrt(comp.joint_rss(beta) / np.maximum(comp.rows, 1))
@@ -463,6 +468,37 @@ def _prior_vector(robot: Robot, terms, prior) -> np.ndarray:
 # the physically consistent fit
 
 
+def divergence_metric(J0: np.ndarray) -> np.ndarray:
+    """(10, 10) Hessian, in the 10 parameters, of the log-det divergence d(J, J0) at J = J0:
+    H_kl = tr(J0^-1 A_k J0^-1 A_l) with A_k the pseudo-inertia of the k-th unit vector."""
+    Ji = np.linalg.inv(J0)
+    A = pseudo_inertia(np.eye(10))  # (10, 4, 4), pseudo_inertia is linear
+    B = Ji @ A
+    return np.einsum("kij,lji->kl", B, B)
+
+
+def realization(robot: Robot, P: np.ndarray, beta: np.ndarray, prior_full: np.ndarray) -> np.ndarray:
+    """Full parameters (p,) with base parameters ``P x = beta`` closest to the prior in the
+    quadratic approximation of the consistent fit's log-det divergence (each body measured in
+    the metric of its prior pseudo-inertia); joint terms, which have no prior, take up what the
+    inertial parameters need not (a weight 1e-6 of the inertial ones). Physical realizability is
+    not enforced: that is the consistent fit's job."""
+    n, p = robot.n, P.shape[1]
+    J0 = _regularized_prior(pseudo_inertia(prior_full[: 10 * n].reshape(n, 10)))
+    H = np.zeros((p, p))
+    for i in range(n):
+        H[10 * i : 10 * i + 10, 10 * i : 10 * i + 10] = divergence_metric(J0[i])
+    d = np.diag(H)[: 10 * n]
+    k = np.arange(10 * n, p)
+    H[k, k] = 1e-6 * d.mean()
+    # min (x - x0)^T H (x - x0) s.t. P x = beta  ->  x = x0 + H^-1 P^T (P H^-1 P^T)^-1 (beta - P x0)
+    Hi_Pt = np.linalg.solve(H, P.T)
+    lam = np.linalg.solve(P @ Hi_Pt, beta - P @ prior_full)
+    x = prior_full + Hi_Pt @ lam
+    x += np.linalg.lstsq(P, beta - P @ x, rcond=None)[0]  # remove rounding in P x = beta
+    return x
+
+
 def _regularized_prior(J0: np.ndarray) -> np.ndarray:
     """Make each prior pseudo-inertia positive definite (massless or degenerate bodies in a
     description would make the log-det divergence undefined): lift its spectrum to at least
@@ -490,7 +526,7 @@ def _sqrtm(J: np.ndarray) -> np.ndarray:
 
 
 def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: Bounds, gamma: float, solver: str):
-    wls_full = prior_full + np.linalg.pinv(P) @ (wls.beta - P @ prior_full)
+    wls_full = realization(robot, P, wls.beta, prior_full)
     import cvxpy as cp
 
     n, nt = robot.n, len(terms)
@@ -548,7 +584,10 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
         s2 = max(s2, 1e-8 * (float(red_w.z @ red_w.z) + red_w.rho**2) / red_w.rows)
         obj = cp.sum_squares((A / np.sqrt(s2)) @ x - red_w.z / np.sqrt(s2)) + gamma * div
         if nt:
-            obj = obj + gamma * cp.sum_squares(u)
+            # Joint terms have no prior: a ridge far weaker than any data (u is in units of the
+            # unconstrained estimate) only keeps a completely unseen term bounded; a stronger one
+            # would bias friction that slow motion sees weakly.
+            obj = obj + 1e-6 * gamma * cp.sum_squares(u)
         prob = cp.Problem(cp.Minimize(obj), cons)
         status = _solve_problem(prob, solver)
         if status not in ("optimal", "optimal_inaccurate") or x.value is None:
