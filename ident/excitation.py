@@ -1054,10 +1054,10 @@ def _check_home(robot: Robot, cfg: ExcitationConfig) -> None:
             raise IdentError(f"{where}: keepout: at home, point '{pt.name}' on link '{pt.link}' is {-d[0]:.4g} m inside keep-out region '{reg.name}' (margin included)")
 
 
-def _prior_information(robot: Robot, cfg: ExcitationConfig, logs) -> tuple[np.ndarray | None, int]:
+def _prior_information(robot: Robot, cfg: ExcitationConfig, logs) -> np.ndarray | None:
     """Information matrix of logs already recorded: a Dataset-like (.q .dq .ddq) or a (q, dq, ddq) tuple."""
     if logs is None:
-        return None, 0
+        return None
     if hasattr(logs, "q") and hasattr(logs, "dq") and hasattr(logs, "ddq"):
         states = (logs.q, logs.dq, logs.ddq)
     elif isinstance(logs, (tuple, list)) and len(logs) == 3:
@@ -1069,7 +1069,7 @@ def _prior_information(robot: Robot, cfg: ExcitationConfig, logs) -> tuple[np.nd
             raise DataError(f"augment logs: {nm} is missing (velocities and accelerations are needed for the regressor)")
     q, dq, ddq = robot.check_states(*states)
     w = None if cfg.torque_noise is None else 1.0 / cfg.torque_noise
-    return information_matrix(robot, q, dq, ddq, cfg.terms, w), q.shape[0]
+    return information_matrix(robot, q, dq, ddq, cfg.terms, w)
 
 
 def design_excitation(robot: Robot, config: ExcitationConfig | dict, logs=None, progress: bool = False, max_evaluations: int | None = None) -> ExcitationResult:
@@ -1081,6 +1081,8 @@ def design_excitation(robot: Robot, config: ExcitationConfig | dict, logs=None, 
     config : an :class:`ExcitationConfig` or a config mapping (validated here).
     logs : augment mode: data already recorded (a dataset with ``.q .dq .ddq`` (N, n), or a tuple
         of those arrays); the criterion is then that of the earlier data plus the new trajectory.
+        Each earlier sample and each new controller-rate sample counts once, so condition the
+        earlier logs as the fit will (same decimation) for a fair balance.
     progress : draw a progress bar with the current best criterion on stderr.
     max_evaluations : cap on objective evaluations per start (deterministic stopping for tests).
 
@@ -1099,7 +1101,7 @@ def design_excitation(robot: Robot, config: ExcitationConfig | dict, logs=None, 
 
 
 def _design(robot: Robot, cfg: ExcitationConfig, logs, progress: bool, max_evaluations: int | None) -> ExcitationResult:
-    A0, n_old = _prior_information(robot, cfg, logs)
+    A0 = _prior_information(robot, cfg, logs)
     prob = _Problem(robot, cfg, A0)
     rng = np.random.default_rng(cfg.seed)
     start_clock = time.monotonic()
@@ -1244,7 +1246,7 @@ def summary_dict(result: ExcitationResult) -> dict:
         "criterion_optimized": cfg.criterion,
         "criteria": {k: _num(v) for k, v in result.criteria.items()},
         "criteria_new_trajectory": {k: _num(v) for k, v in result.criteria_new.items()},
-        "criteria_earlier_logs": None if result.criteria_prior is None else {k: _num(v) for k, v in result.criteria_prior.items()},
+        "criteria_earlier_logs": None if result.criteria_prior is None else {**{k: _num(v) for k, v in result.criteria_prior.items()}, "rank_deficient": not math.isfinite(result.criteria_prior["cond"])},
         "base_parameters": len(result.base_names),
         "terms": list(cfg.terms),
         "period_s": cfg.period,
@@ -1270,18 +1272,20 @@ def summary_text(result: ExcitationResult) -> str:
     from .commands.common import format_table
 
     d = summary_dict(result)
-    c, cn = d["criteria"], d["criteria_new_trajectory"]
+    c_cond, c_ld = _fmt_crit(result.criteria)
     lines = [
         f"Excitation for {d['robot']}: {d['harmonics']} harmonics, period {d['period_s']:g} s x {d['periods']}, sampled at {d['rate_hz']:g} Hz",
-        f"Criteria on {d['base_parameters']} base parameters (joint terms: {', '.join(d['terms']) or 'none'}; optimized: {d['criterion_optimized']})",
-        f"  condition number (column-scaled base regressor): {_fmt(c['cond'])}",
-        f"  log det of the information matrix:               {_fmt(c['logdet'])}",
+        f"Criteria on {d['base_parameters']} base parameters (joint terms: {', '.join(d['terms']) or 'none'}; optimized: {d['criterion_optimized']})"
+        + (", earlier logs and new trajectory combined" if result.criteria_prior is not None else ""),
+        f"  condition number (column-scaled base regressor): {c_cond}",
+        f"  log det of the information matrix:               {c_ld}",
     ]
-    if d["criteria_earlier_logs"] is not None:
-        e = d["criteria_earlier_logs"]
+    if result.criteria_prior is not None:
+        e_cond, e_ld = _fmt_crit(result.criteria_prior)
+        n_cond, n_ld = _fmt_crit(result.criteria_new)
         lines += [
-            f"  earlier logs alone:   cond {_fmt(e['cond'])}, logdet {_fmt(e['logdet'])}",
-            f"  new trajectory alone: cond {_fmt(cn['cond'])}, logdet {_fmt(cn['logdet'])}",
+            f"  earlier logs alone:   cond {e_cond}, logdet {e_ld}",
+            f"  new trajectory alone: cond {n_cond}, logdet {n_ld}",
         ]
     rows = []
     for j in d["joints"]:
@@ -1312,6 +1316,13 @@ def _fmt(x) -> str:
     if x is None:
         return "n/a"
     return f"{x:.4g}"
+
+
+def _fmt_crit(c: dict) -> tuple[str, str]:
+    """Readable cond and logdet; a singular information matrix is named as such."""
+    if not math.isfinite(c["cond"]):
+        return "inf (rank deficient: some base parameters unidentifiable)", "-inf"
+    return f"{c['cond']:.4g}", f"{c['logdet']:.5g}"
 
 
 def trajectory_table(robot_joints: list[str], t, q, dq, ddq) -> str:

@@ -252,6 +252,24 @@ def test_augment_mode_completes_rank_deficient_earlier_logs():
     ref = ex.criteria_from_information(ex.information_matrix(robot, *stacked, "fv,fc"))
     assert res.criteria["cond"] == pytest.approx(ref["cond"], rel=1e-6)
     assert res.criteria["logdet"] == pytest.approx(ref["logdet"], rel=1e-9)
+    assert "rank deficient" in ex.summary_text(res)
+
+
+def test_augment_mode_reads_earlier_logs_through_the_log_reader(tmp_path):
+    robot = ident.load_robot(erd_path(UR5))
+    cfg = _config(_pin_model(UR5), UR5_HOME, UR5_WATCH)
+    cfg["optimizer"].update(starts=1, max_iterations=5)
+    t = np.arange(0, 12.0, 0.01)
+    q = np.tile(np.array(UR5_HOME), (t.size, 1))
+    q[:, 0] += 0.5 * np.sin(2 * np.pi * 0.2 * t)
+    tau = ident.inverse_dynamics(robot, q, np.gradient(q, t, axis=0), np.gradient(np.gradient(q, t, axis=0), t, axis=0))
+    cols = ["time"] + [f"{j}.q" for j in robot.joint_names] + [f"{j}.tau" for j in robot.joint_names]
+    path = tmp_path / "first_run.csv"
+    np.savetxt(path, np.column_stack([t, q, tau]), delimiter=",", header=",".join(cols), comments="")
+    ds = ident.load_dataset([path], robot=robot, options={"cutoff": 4.0})
+    res = ex.design_excitation(robot, cfg, logs=ds, max_evaluations=10)
+    assert res.criteria_prior["cond"] == np.inf  # one joint moved: most base parameters unseen
+    assert np.isfinite(res.criteria["cond"])
 
 
 # -- bad requests -----------------------------------------------------------------------------

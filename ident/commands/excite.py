@@ -7,7 +7,9 @@ import sys
 
 from ..errors import IdentError
 from ..excitation import design_excitation, load_excitation_config, load_trajectory, summary_text, verify_trajectory, write_excitation
+from ..logs import load_dataset
 from .common import SAFETY_CAUTIONS, add_robot_arguments, robot_from_args
+from .logs import add_log_arguments, options_from_args
 
 EPILOG = """\
 The config (YAML) sets the period, harmonics, home pose, controller rate, limits and margins,
@@ -19,7 +21,7 @@ summary.txt and summary.json (criteria, margins to every limit and keep-out regi
 
 examples:
   ident excite ur5_robot.urdf --config excite.yaml --out excite_run1
-  ident excite ur5_robot.urdf --config excite.yaml --out run2 --augment run1_log.csv
+  ident excite ur5_robot.urdf --config excite.yaml --out run2 --augment run1_log.csv --period 10 --harmonics 5
   ident excite ur5_robot.urdf --config excite.yaml --out recheck --from excite_run1/coefficients.yaml
 """
 
@@ -45,6 +47,8 @@ def add_parser(sub) -> None:
     p.add_argument("--augment", nargs="+", metavar="LOG", help="logs already recorded: design the next trajectory to improve the combined data")
     p.add_argument("--from", dest="from_coeffs", metavar="COEFFS", help="skip the design: re-check and re-write an existing coefficients file")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
+    # --augment logs are read like every other command's logs (profile, filtering, derivatives)
+    add_log_arguments(p)
     p.set_defaults(func=run)
 
 
@@ -73,7 +77,7 @@ def run(args: argparse.Namespace) -> int:
             raise IdentError("--from and --augment: choose one (re-check an existing trajectory, or design a new one)")
         result = verify_trajectory(robot, cfg, load_trajectory(args.from_coeffs, robot))
     else:
-        logs = _load_logs(args.augment, robot) if args.augment else None
+        logs = load_dataset(args.augment, robot=robot, profile=args.profile, options=options_from_args(args)) if args.augment else None
         result = design_excitation(robot, cfg, logs=logs, progress=not args.quiet)
     paths = write_excitation(args.out, result, robot)
 
@@ -85,11 +89,3 @@ def run(args: argparse.Namespace) -> int:
     sys.stdout.flush()
     return 0
 
-
-def _load_logs(paths, robot):
-    """Earlier logs as a dataset (joint order = robot's), through the shared log reader."""
-    try:
-        from ..logs import load_dataset
-    except ImportError:
-        raise IdentError("--augment: reading logs needs ident.logs, which this installation lacks") from None
-    return load_dataset(paths, robot=robot)
