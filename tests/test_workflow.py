@@ -1,0 +1,134 @@
+"""End to end through the command line on the bundled demo data: demo, check, export, and bad input."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import ident
+from ident.paramfile import load_parameters, parameter_set_from_vector, save_parameters
+
+from conftest import UR5, erd_path
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO = ROOT / "datasets_demo"
+URDF = DEMO / "sprout6.urdf"
+
+
+def cli(*args, cwd=None) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "ident", *map(str, args)], capture_output=True, text=True, cwd=cwd, timeout=300)
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("demo") / "run"
+    proc = cli("demo", "--out", out, "--json")
+    assert proc.returncode == 0, proc.stderr
+    return out, json.loads(proc.stdout)
+
+
+def test_demo_fit_predicts_held_out_torque_at_the_noise_level(demo_run):
+    out, summary = demo_run
+    robot = ident.load_robot(URDF)
+    truth = load_parameters(DEMO / "sprout6_truth.yaml", robot)
+    # the simulated torque-noise std (the simulation's own setting, recorded with the truth)
+    noise = np.array([truth.data["torque_noise_std"][j] for j in robot.joint_names])
+    rms = np.array([summary["heldout_rms"][j] for j in robot.joint_names])
+    # issue requirement: held-out RMS at most 1.1x the noise std on every joint. The check filters the
+    # torque like the positions (10 Hz), which removes part of the white noise, so the RMS sits below it.
+    assert np.all(rms <= 1.1 * noise), rms / noise
+    assert summary["all_physical"]
+    for key in ("report", "parameters", "urdf"):
+        assert Path(summary[key]).is_file()
+    ps = load_parameters(summary["parameters"], robot)
+    assert ps.method["name"] == "consistent"
+    assert ps.physical().all()
+    # friction is identifiable: within 10 % of the simulated truth on every joint
+    for code in ("fv", "fc"):
+        assert np.allclose(ps.joint_params[code], truth.joint_params[code], rtol=0.10), code
+
+
+def test_check_command_agrees_with_the_demo_and_reports_consistency(demo_run):
+    out, summary = demo_run
+    proc = cli("check", URDF, summary["parameters"], DEMO / "sprout6_heldout.csv", "--cutoff", "10", "--json")
+    assert proc.returncode == 0, proc.stderr
+    res = json.loads(proc.stdout)
+    assert res["all_physical"] and all(lk["physical"] for lk in res["links"])
+    for j in res["joints"]:
+        assert j["rms"] == pytest.approx(summary["heldout_rms"][j["name"]], rel=1e-9)
+        assert 0 < j["nrms_percent"] < 5 and j["r2"] > 0.99 and j["max_error"] >= j["rms"]
+
+
+def test_exported_demo_urdf_matches_the_identified_model_in_pin(demo_run):
+    pin = pytest.importorskip("pinocchio")
+    out, summary = demo_run
+    robot = ident.load_robot(URDF)
+    ps = load_parameters(summary["parameters"], robot)
+    model = pin.buildModelFromUrdf(summary["urdf"])
+    data = model.createData()
+    rng = np.random.default_rng(4)
+    q = rng.uniform(robot.lower, robot.upper, size=(30, robot.n))
+    dq, ddq = rng.normal(size=(2, 30, robot.n))
+    ours = ident.inverse_dynamics(robot, q, dq, ddq, ps.inertial)
+    ref = np.array([pin.rnea(model, data, q[k], dq[k], ddq[k]) for k in range(30)])
+    # reference library pin on the exported file: same inverse dynamics to 1e-9 relative
+    assert np.abs(ours - ref).max() <= 1e-9 * np.abs(ref).max()
+
+
+def test_demo_data_and_its_packaged_copy_are_identical():
+    packaged = ROOT / "ident" / "demo_data"
+    for f in ("sprout6.urdf", "sprout6_truth.yaml", "sprout6_excite.csv", "sprout6_heldout.csv"):
+        assert (DEMO / f).read_bytes() == (packaged / f).read_bytes(), f
+
+
+def _assert_one_line_error(status, stderr, command):
+    assert status == 2, (status, stderr)
+    assert stderr.count("\n") == 1, stderr
+    assert stderr.startswith(f"ident {command}: error:") or stderr.startswith("ident: error:"), stderr
+
+
+def test_bad_input_across_commands_one_line_exit_2_no_outputs(tmp_path, demo_run, capsys):
+    from ident.cli import main
+
+    out, summary = demo_run
+    held = DEMO / "sprout6_heldout.csv"
+    empty = tmp_path / "empty.csv"
+    empty.write_text(held.read_text().splitlines()[0] + "\n")
+    ur5 = ident.load_robot(erd_path(UR5))
+    ur5_params = tmp_path / "ur5.yaml"
+    save_parameters(ur5_params, parameter_set_from_vector(ur5, ur5.prior.ravel()))
+    ur5_log = tmp_path / "ur5_log.csv"
+    cols = ["time"] + [f"{j}.{c}" for c in ("q", "tau") for j in ur5.joint_names]
+    np.savetxt(ur5_log, np.column_stack([np.arange(50) * 0.01, np.zeros((50, 12))]), delimiter=",", header=",".join(cols), comments="")
+    rep = tmp_path / "r.html"
+    exported = tmp_path / "x.urdf"
+    demo_target = tmp_path / "a_file"
+    demo_target.write_text("not a folder")
+    cases = [
+        ("check", ["check", URDF, summary["parameters"], tmp_path / "missing.csv", "--cutoff", "10", "--report", rep]),
+        ("check", ["check", URDF, summary["parameters"], ur5_log, "--cutoff", "10", "--report", rep]),  # log of another robot
+        ("check", ["check", URDF, ur5_params, held, "--cutoff", "10", "--report", rep]),  # parameters of another robot
+        ("check", ["check", URDF, summary["parameters"], empty, "--cutoff", "10", "--report", rep]),  # empty log
+        ("export", ["export", tmp_path / "missing.yaml", "--urdf", URDF, "--out", exported]),
+        ("export", ["export", ur5_params, "--urdf", URDF, "--out", exported]),
+        ("simulate", ["simulate", URDF, "--trajectory", tmp_path / "none.csv", "--truth", DEMO / "sprout6_truth.yaml", "--out", tmp_path / "sim.csv"]),
+        ("simulate", ["simulate", URDF, "--trajectory", held, "--truth", ur5_params, "--out", tmp_path / "sim.csv"]),
+        ("demo", ["demo", "--out", demo_target]),
+    ]
+    before = sorted(p.name for p in tmp_path.iterdir())
+    capsys.readouterr()
+    for k, (command, argv) in enumerate(cases):
+        if k in (1, 3):  # a real process for some: nothing but one line reaches stderr
+            proc = cli(*argv)
+            status, err = proc.returncode, proc.stderr
+        else:  # the same entry point in-process (faster)
+            status = main([str(a) for a in argv])
+            err = capsys.readouterr().err
+        _assert_one_line_error(status, err, command)
+        assert sorted(p.name for p in tmp_path.iterdir()) == before, f"{argv}: left files behind"
+    assert demo_target.read_text() == "not a folder"
