@@ -22,7 +22,8 @@ Layout (every key is checked; unknown keys are refused)::
           mass: 3.2               # kg
           com: [0, -20, 5]        # length unit, in DH frame i
           inertia: [xx, xy, xz, yy, yz, zz]   # kg * length unit^2, about the COM, DH frame i axes
-    tool: {name: flange, xyz: [0, 0, 80], rpy: [0, 0, 0]}   # optional, from DH frame n
+    tool: {name: flange, xyz: [0, 0, 80], rpy: [0, 0, 0]}   # optional, placed in DH frame n:
+                                  # xyz in the length unit, URDF-style roll-pitch-yaw in the angle unit
 
 Limits: lower/upper in the angle (revolute) or length (prismatic) unit, velocity in that unit per
 second, effort in N m or N. Each is optional (absent = unlimited).
@@ -261,9 +262,7 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
     dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
         rd.fail("joints", f"joint name '{dup[0]}' is used twice (names ending in _fixed are reserved for frames)")
-    robot = build_robot(name, links, specs, selected=joints, locked=locked, gravity=gravity, source=where, source_kind="dh", where=where)
-    robot.base_name = base
-    return robot
+    return build_robot(name, links, specs, selected=joints, locked=locked, gravity=gravity, source=where, source_kind="dh", where=where)
 
 
 def _link_prior(rd: _Reader, link: dict, place: str, lng: float) -> np.ndarray:
