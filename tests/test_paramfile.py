@@ -1,0 +1,136 @@
+"""The parameter file: layout, round trip, validation.
+
+External reference: the per-link mass, COM and inertia at the COM written for a URDF's own values
+are compared with pinocchio's reading of the same URDF (`pin.buildModelFromUrdf`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pinocchio as pin
+import pytest
+import yaml
+
+import ident
+from ident.errors import DataError, IdentError
+from ident.paramfile import FORMAT, BaseTable, load_parameters, parameter_set_from_vector, save_parameters
+
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
+
+
+@pytest.fixture(scope="module")
+def ur5():
+    return ident.load_robot(erd_path(UR5))
+
+
+def _write(tmp_path, doc, name="p.yaml"):
+    path = tmp_path / name
+    path.write_text(yaml.safe_dump(doc, sort_keys=False))
+    return path
+
+
+def test_urdf_values_match_pinocchio(ur5, tmp_path):
+    # Reference: pinocchio's Inertia (mass, lever = COM, inertia about the COM) of each joint's body.
+    path = tmp_path / "ur5.yaml"
+    save_parameters(path, parameter_set_from_vector(ur5, ur5.prior.reshape(-1)))
+    doc = yaml.safe_load(path.read_text())
+    assert doc["format"] == FORMAT
+    model = pin.buildModelFromUrdf(str(erd_path(UR5)))
+    for i, body in enumerate(ur5.body_names):
+        ref = model.inertias[i + 1]
+        link = doc["links"][body]
+        assert link["joint"] == ur5.joint_names[i]
+        assert link["mass"] == pytest.approx(ref.mass, rel=1e-12)
+        np.testing.assert_allclose(link["com"], ref.lever, atol=1e-12)
+        I = link["inertia_com"]
+        got = np.array([[I["xx"], I["xy"], I["xz"]], [I["xy"], I["yy"], I["yz"]], [I["xz"], I["yz"], I["zz"]]])
+        np.testing.assert_allclose(got, ref.inertia, atol=1e-12)
+        assert link["physical"] is True
+
+
+def test_roundtrip_with_terms_base_and_metadata(tmp_path):
+    robot = ident.load_robot(erd_path(PANDA), locked=PANDA_FINGERS_LOCKED)
+    rng = np.random.default_rng(0)
+    terms = ("fv", "fc", "fo", "ia")
+    vec = np.concatenate([robot.prior.reshape(-1), rng.uniform(0.1, 2.0, robot.n * len(terms))])
+    base = BaseTable(["a.m", "b.zzR"], [1.5, 0.25], [0.01, float("nan")], ["a.m", "b.zzR = b.zz + 0.1*c.m"])
+    ps = parameter_set_from_vector(robot, vec, terms, base=base, method={"name": "wls"}, data={"files": ["x.csv"], "samples": 10},
+                                   diagnostics={"condition_number": np.float64(12.5), "residual_rms": {"j": 0.1}})
+    path = tmp_path / "panda.yaml"
+    save_parameters(path, ps)
+    back = load_parameters(path, robot)
+    np.testing.assert_allclose(back.vector(), vec, rtol=1e-13, atol=1e-16)
+    assert back.terms == terms and back.joint_names == robot.joint_names
+    assert back.base.names == ["a.m", "b.zzR"] and np.isnan(back.base.std[1])
+    assert back.base.relations[1] == "b.zzR = b.zz + 0.1*c.m"
+    assert back.method == {"name": "wls"} and back.data["samples"] == 10
+    assert back.diagnostics["condition_number"] == 12.5
+
+
+def test_nonphysical_link_stored_in_first_moment_form(ur5, tmp_path):
+    pi = ur5.prior.copy()
+    pi[2, 0] = -0.5  # negative mass: no COM exists
+    path = tmp_path / "bad.yaml"
+    save_parameters(path, parameter_set_from_vector(ur5, pi.reshape(-1)))
+    doc = yaml.safe_load(path.read_text())
+    link = doc["links"][ur5.body_names[2]]
+    assert "first_moment" in link and "inertia_origin" in link and link["physical"] is False
+    back = load_parameters(path, ur5)
+    np.testing.assert_allclose(back.inertial, pi, rtol=1e-14, atol=1e-16)
+    assert list(back.physical()) == [True, True, False, True, True, True]
+
+
+def test_reorders_to_the_robot(ur5, tmp_path):
+    path = tmp_path / "p.yaml"
+    save_parameters(path, parameter_set_from_vector(ur5, ur5.prior.reshape(-1)))
+    doc = yaml.safe_load(path.read_text())
+    doc["joints"] = list(reversed(doc["joints"]))
+    back = load_parameters(_write(tmp_path, doc, "rev.yaml"), ur5)
+    np.testing.assert_allclose(back.inertial, ur5.prior, atol=1e-15)
+
+
+@pytest.mark.parametrize(
+    "edit, message",
+    [
+        (lambda d: d.update(colour="red"), "unknown key 'colour'"),
+        (lambda d: d.pop("links"), "missing key 'links'"),
+        (lambda d: d.update(format="ident-parameters/9"), "format 'ident-parameters/9' is not supported"),
+        (lambda d: d["links"]["forearm_link"].update(mass=float("nan")), "links.forearm_link.mass: value is not finite"),
+        (lambda d: d["links"]["forearm_link"].update(com=[0.0, 0.1]), "links.forearm_link.com: expected a list of 3 numbers"),
+        (lambda d: d["links"]["forearm_link"].update(mass="heavy"), "links.forearm_link.mass: 'heavy' is not a number"),
+        (lambda d: d["links"]["forearm_link"]["inertia_com"].pop("yz"), "inertia_com: expected the six entries"),
+        (lambda d: d["links"]["forearm_link"].update(joint="elbow"), "links.forearm_link.joint: 'elbow' is not one of the listed joints"),
+        (lambda d: d["joint_terms"]["elbow_joint"].pop("fc"), "joint_terms.elbow_joint.fc: missing"),
+        (lambda d: d["joint_terms"]["elbow_joint"].update(ia=0.1), "joint_terms.elbow_joint.ia: not a declared term"),
+        (lambda d: d.update(terms=["fv", "spring"]), "unknown joint term 'spring'"),
+        (lambda d: d["links"].pop("forearm_link"), "'links' must map 6 link names"),
+    ],
+)
+def test_malformed_files_name_the_key(ur5, tmp_path, edit, message):
+    path = tmp_path / "p.yaml"
+    save_parameters(path, parameter_set_from_vector(ur5, np.concatenate([ur5.prior.reshape(-1), np.ones(12)]), ("fv", "fc")))
+    doc = yaml.safe_load(path.read_text())
+    edit(doc)
+    bad = _write(tmp_path, doc, "bad.yaml")
+    with pytest.raises(DataError) as err:
+        load_parameters(bad, ur5)
+    assert message in str(err.value) and str(bad) in str(err.value)
+
+
+def test_file_of_another_robot_is_refused(ur5, tmp_path):
+    panda = ident.load_robot(erd_path(PANDA), locked=PANDA_FINGERS_LOCKED)
+    path = tmp_path / "panda.yaml"
+    save_parameters(path, parameter_set_from_vector(panda, panda.prior.reshape(-1)))
+    with pytest.raises(DataError, match="does not belong to this robot model.*shoulder_pan_joint"):
+        load_parameters(path, ur5)
+
+
+def test_not_yaml_and_missing(tmp_path, ur5):
+    p = tmp_path / "x.yaml"
+    p.write_text("links: [unclosed\n")
+    with pytest.raises(DataError, match="not valid YAML"):
+        load_parameters(p)
+    with pytest.raises(DataError, match="not found"):
+        load_parameters(tmp_path / "nope.yaml")
+    with pytest.raises(IdentError, match="expected 60 values"):
+        parameter_set_from_vector(ur5, np.zeros(59))
