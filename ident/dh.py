@@ -142,7 +142,14 @@ class _Reader:
 
 
 def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> Robot:
-    """Build a :class:`Robot` from an already-parsed ``ident-dh/1`` mapping (see :func:`load_dh`)."""
+    """Build a :class:`Robot` from an already-parsed ``ident-dh/1`` mapping.
+
+    Parameters
+    ----------
+    data : the mapping (as ``yaml.safe_load`` returns it; layout in the module docstring).
+    where : name of the source in error messages (a file path).
+    joints, locked : as for :func:`load_dh`.
+    """
     rd = _Reader(where)
     top = rd.mapping(data, "top level", _TOP_KEYS, ("format", "name", "convention", "units", "joints"))
     if top["format"] != FORMAT:

@@ -228,11 +228,13 @@ _BLOCK = 64
 
 @njit(**_OPTS)
 def _regressor_serial(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, out):
+    """The regressor of every sample on the calling thread (see :func:`regressor_chunk`)."""
     _regressor_block(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, out, 0, q.shape[0])
 
 
 @njit(parallel=True, **_OPTS)
 def _regressor_parallel(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, out):
+    """The regressor with blocks of samples spread over numba's threads (see :func:`regressor_chunk`)."""
     N = q.shape[0]
     nb = (N + _BLOCK - 1) // _BLOCK
     for b in prange(nb):
