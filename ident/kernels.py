@@ -244,6 +244,17 @@ def _regressor_parallel(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, o
 
 
 _THREADING = "auto"
+_PARENT_PID = os.getpid()
+
+
+def _after_fork_in_child() -> None:
+    # numba's OpenMP pool does not survive fork(): a child that enters a parallel region is
+    # terminated. Forked children (multiprocessing on Linux) therefore stay on one thread.
+    global _THREADING
+    _THREADING = "off"
+
+
+os.register_at_fork(after_in_child=_after_fork_in_child)
 
 
 def set_threading(mode: str) -> str:
@@ -258,6 +269,8 @@ def set_threading(mode: str) -> str:
         from .errors import IdentError
 
         raise IdentError(f"threading mode: expected 'auto', 'on' or 'off', got {mode!r}")
+    if os.getpid() != _PARENT_PID:
+        mode = "off"  # see _after_fork_in_child
     previous, _THREADING = _THREADING, mode
     return previous
 

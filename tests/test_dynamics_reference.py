@@ -292,3 +292,28 @@ def test_streamed_and_threaded_regressor_equal_the_full_one():
     jp = {"fv": np.full(r.n, 0.3), "fc": np.full(r.n, 0.8), "fo": np.full(r.n, -0.1), "ia": np.full(r.n, 0.05)}
     pi = np.concatenate([r.prior.reshape(-1), np.stack([jp[c] for c in ("fv", "fc", "fo", "ia")], 1).reshape(-1)])
     assert_close(ident.predict(r, q, dq, ddq, pi, "all"), ident.inverse_dynamics(r, q, dq, ddq, joint_params=jp), "Y pi with joint terms")
+
+
+def _regressor_sum(args):
+    robot, q, dq, ddq = args
+    from ident import kernels
+
+    kernels.set_threading("on")  # refused in a forked child: stays on one thread
+    return float(ident.regressor(robot, q, dq, ddq).sum())
+
+
+def test_forked_children_compute_the_regressor_after_threaded_use():
+    # numba's OpenMP pool does not survive fork(); ident keeps forked children on one thread.
+    import multiprocessing as mp
+
+    from ident import kernels
+
+    pair = make_pair(*CASES["panda"])
+    q, dq, ddq = random_states(pair.robot, 1200, np.random.default_rng(29))
+    previous = kernels.set_threading("on")
+    try:
+        total = float(ident.regressor(pair.robot, q, dq, ddq).sum())  # the parent uses threads
+        with mp.get_context("fork").Pool(1) as pool:
+            assert pool.apply_async(_regressor_sum, ((pair.robot, q, dq, ddq),)).get(timeout=120) == total
+    finally:
+        kernels.set_threading(previous)
