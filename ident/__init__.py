@@ -20,7 +20,7 @@ from .dynamics import (
 from .regressor import iter_regressor, predict, regressor, stream_regressor
 from .base import BaseParameters, base_parameters
 from .paramfile import ParameterSet, load_parameters, parameter_set_from_vector, save_parameters
-from .logs import Dataset, LogOptions, Segment, apply_delay, estimate_dataset_delay, load_dataset, load_profile, read_logs
+from .logs import Dataset, LogOptions, Segment, apply_delay, estimate_dataset_delay, load_dataset, load_profile, preliminary_delay, read_logs
 from .estimate import Bounds, FitResult, fit
 from .payload import PayloadResult, identify_payload
 from .excitation import ExcitationConfig, ExcitationResult, FourierTrajectory, design_excitation, load_excitation_config, load_trajectory, write_excitation

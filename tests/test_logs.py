@@ -453,3 +453,28 @@ def test_example_profile_reads_its_controller_export(tmp_path):
     np.testing.assert_allclose(raw.tau, ref.loc[sel, [f"{j}.tau" for j in robot.joint_names]].to_numpy(), atol=1e-9)
     ds = L.load_dataset(path, robot=robot, profile=prof)
     assert ds.info["cutoff"] == pytest.approx(2.5) and ds.segments[0].dt == pytest.approx(0.01)
+
+
+def test_preliminary_delay_from_a_fit_and_cli_report(tmp_path, capsys):
+    # torque channel 6 ms late on a simulated demo arm; the profiled least-squares search finds it
+    demo = Path(__file__).resolve().parent.parent / "datasets_demo"
+    robot = ident.load_robot(demo / "sprout6.urdf")
+    rng = np.random.default_rng(12)
+    fs = 500.0
+    t = np.arange(0.0, 30.0, 1.0 / fs)
+    w = 2 * np.pi * np.array([0.1, 0.2, 0.3, 0.4, 0.5])
+    amp = rng.uniform(0.05, 0.15, (robot.n, 5))
+    ph = rng.uniform(0, 2 * np.pi, (robot.n, 5))
+    arg = t[:, None, None] * w + ph
+    q, dq, ddq = (amp * np.sin(arg)).sum(-1), (amp * w * np.cos(arg)).sum(-1), -(amp * w * w * np.sin(arg)).sum(-1)
+    tau = ident.inverse_dynamics(robot, q, dq, ddq) + 0.5 * dq
+    delay = 0.006
+    late = np.stack([np.interp(t - delay, t, tau[:, k]) for k in range(robot.n)], 1) + 0.01 * rng.standard_normal(tau.shape)
+    path = to_csv(table(t, robot.joint_names, q + 1e-5 * rng.standard_normal(q.shape), late), tmp_path / "late.csv")
+    ds = L.load_dataset(path, robot=robot, options={"max_frequency": 0.5})
+    est = L.preliminary_delay(ds, robot, terms=("fv",))
+    np.testing.assert_allclose(est, delay, atol=1e-3)
+    assert main(["logs", str(path), "--robot", str(demo / "sprout6.urdf"), "--max-frequency", "0.5",
+                 "--remove-delay", "--delay-terms", "fv", "--json"]) == 0
+    s = json.loads(capsys.readouterr().out)
+    assert s["delay_removed"] and all(abs(v - delay) < 1e-3 for v in s["delay"].values())

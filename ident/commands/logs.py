@@ -8,6 +8,7 @@ import argparse
 from .. import logs as L
 from ..conditioning import CUTOFF_RATIO
 from ..errors import IdentError
+from ..model import parse_terms
 from .common import add_robot_arguments, format_table, print_json, robot_from_args
 
 EPILOG = """\
@@ -109,6 +110,10 @@ def add_parser(sub) -> None:
     p.add_argument("--robot", metavar="ROBOT", help="robot description: joints in its order, units checked against its joint types and limits")
     add_robot_arguments(p, positional=False)
     add_log_arguments(p)
+    p.add_argument("--estimate-delay", action="store_true",
+                   help="with --robot: estimate the torque channel's delay behind the positions from a preliminary OLS fit and report it")
+    p.add_argument("--remove-delay", action="store_true", help="like --estimate-delay, and remove the delay from the samples (see --out)")
+    p.add_argument("--delay-terms", default="fv,fc", metavar="T1,T2", help="joint terms of the preliminary fit (default fv,fc)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.add_argument("--out", metavar="FILE", help="also write the conditioned samples (.csv or .parquet, columns segment, time, <joint>.q/.dq/.ddq/.tau)")
     p.set_defaults(func=run)
@@ -124,7 +129,17 @@ def run(args: argparse.Namespace) -> int:
         ds = L.read_logs(args.logs, robot=robot, profile=prof, options=opts)
     else:
         ds = L.load_dataset(args.logs, robot=robot, profile=prof, options=opts)
+    delay = None
+    if args.estimate_delay or args.remove_delay:
+        if robot is None or needs_cutoff:
+            raise IdentError("--estimate-delay: needs --robot and conditioned samples (a cutoff: --cutoff, --max-frequency or --period with --harmonics)")
+        delay = L.preliminary_delay(ds, robot, parse_terms(args.delay_terms))
+        if args.remove_delay:
+            ds = L.apply_delay(ds, delay)
     summary = L.describe(ds)
+    if delay is not None:
+        summary["delay"] = {j: float(d) for j, d in zip(ds.joint_names, delay)}
+        summary["delay_removed"] = bool(args.remove_delay)
     if args.out:
         if needs_cutoff:
             raise IdentError("--out: the samples are not conditioned (no cutoff known); give --cutoff, --max-frequency or --period with --harmonics")
@@ -172,6 +187,9 @@ def _text(ds: L.Dataset, s: dict, robot, raw_only: bool) -> str:
     if s["noise_var"] is not None:
         sd = ", ".join(f"{j} {v ** 0.5:.3g}" for j, v in zip(s["joints"], s["noise_var"]))
         lines.append(f"torque noise std per sample (from {ds.info.get('periods_averaged')} periods): {sd}")
+    if "delay" in s:
+        dl = ", ".join(f"{j} {1e3 * d:+.2f}" for j, d in s["delay"].items())
+        lines.append(f"torque delay behind positions, ms (preliminary OLS fit): {dl}" + ("  [removed]" if s["delay_removed"] else ""))
     if s["warnings"]:
         lines.append(f"warnings ({len(s['warnings'])}):")
         lines += [f"  - {w}" for w in s["warnings"]]
