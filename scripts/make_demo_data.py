@@ -6,8 +6,13 @@ cable looms along the upper arm and forearm, heavier wrist motors, grease in the
 gripper with a suction manifold. Those true values go to sprout6_truth.yaml; the logs come from
 ``ident simulate`` (closed loop, friction, armature, 20-bit encoders, torque noise) with fixed seeds:
 
-* sprout6_excite.csv  : 3 periods of a 10 s, 5-harmonic Fourier excitation, logged at 200 Hz
-* sprout6_heldout.csv : 3 periods of a different 8 s, 4-harmonic motion, logged at 200 Hz
+* sprout6_excite.csv  : 3 periods of the 10 s, 5-harmonic excitation that ``ident excite`` designs
+  from sprout6_excite_config.yaml (optimized condition number), logged at 200 Hz
+* sprout6_heldout.csv : 3 periods of a different motion (8 s, 4 harmonics, another seed, same
+  limits and keep-out regions), logged at 200 Hz
+
+Both trajectories come from ``ident excite`` with iteration caps and a generous time budget, so
+they are the same on every run (the optimizer is deterministic when the budget is not reached).
 
 Run from the repository root:  python scripts/make_demo_data.py
 """
@@ -21,19 +26,18 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
+import yaml
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import ident  # noqa: E402
-from ident.fileio import write_text  # noqa: E402
 from ident.paramfile import parameter_set_from_vector, save_parameters  # noqa: E402
 from ident.spatial import to_vector, from_vector  # noqa: E402
 
 DEMO = ROOT / "datasets_demo"
 PACKAGED = ROOT / "ident" / "demo_data"
 URDF = DEMO / "sprout6.urdf"
-CONTROL_RATE = 1000.0  # Hz, trajectory and controller
 LOG_RATE = 200.0  # Hz
 #: Torque-noise std per joint (N m): about 0.5 % of each joint's effort limit (an invented drive).
 TORQUE_NOISE = [0.2, 0.2, 0.1, 0.04, 0.04, 0.03]
@@ -65,32 +69,10 @@ def as_built(robot: ident.Robot) -> np.ndarray:
     return out
 
 
-def fourier(joints: int, period: float, harmonics: int, lower, upper, vmax, seed: int, t: np.ndarray):
-    """A Fourier-series reference (our own quick design) scaled into 85 % of the position range and 70 % of the velocity limits."""
-    rng = np.random.default_rng(seed)
-    wf = 2 * np.pi / period
-    l = np.arange(1, harmonics + 1)
-    a = rng.normal(size=(joints, harmonics)) / l
-    b = rng.normal(size=(joints, harmonics)) / l
-    arg = wf * np.outer(t, l)  # (K, H)
-    s, c = np.sin(arg), np.cos(arg)
-    q = s @ (a / (wf * l)).T - c @ (b / (wf * l)).T
-    dq = c @ a.T + s @ b.T
-    ddq = -s @ (a * wf * l).T + c @ (b * wf * l).T
-    centre = 0.5 * (lower + upper)
-    half = 0.5 * (upper - lower)
-    span = np.ptp(q, axis=0) / 2
-    mid = 0.5 * (q.max(axis=0) + q.min(axis=0))
-    scale = np.minimum(0.7 * half / span, 0.7 * vmax / np.abs(dq).max(axis=0))
-    q = centre + 0.15 * half * np.sin(np.arange(joints)) + scale * (q - mid)
-    return q, scale * dq, scale * ddq
-
-
-def write_trajectory(path: Path, names, t, q, dq, ddq) -> None:
-    cols = ["time"] + [f"{j}.{s}" for s in ("q", "dq", "ddq") for j in names]
-    data = np.column_stack([t, q, dq, ddq])
-    lines = [",".join(cols)] + [",".join(f"{v:.12g}" for v in row) for row in data]
-    write_text(path, "\n".join(lines) + "\n")
+def run(args: list[str]) -> None:
+    """Run one ident command in a child process, echoing it."""
+    print("ident " + " ".join(Path(a).name if "/" in a else a for a in args), flush=True)
+    subprocess.run([sys.executable, "-m", "ident", *args], check=True, cwd=ROOT)
 
 
 def main() -> int:
@@ -104,21 +86,18 @@ def main() -> int:
         data={"torque_noise_std": dict(zip(robot.joint_names, TORQUE_NOISE))},
     )
     save_parameters(DEMO / "sprout6_truth.yaml", truth)
-    lower = np.maximum(robot.lower, -2.5)
-    upper = np.minimum(robot.upper, 2.5)
-    plans = {"excite": (10.0, 5), "heldout": (8.0, 4)}
+    config = yaml.safe_load((DEMO / "sprout6_excite_config.yaml").read_text())
+    held_config = dict(config, period=8.0, harmonics=4, optimizer=dict(config["optimizer"], seed=5))
     with tempfile.TemporaryDirectory() as tmp:
-        for name, (period, harmonics) in plans.items():
-            t = np.arange(int(round(3 * period * CONTROL_RATE))) / CONTROL_RATE
-            q, dq, ddq = fourier(n, period, harmonics, lower, upper, robot.velocity_limit, SEEDS[name], t)
-            traj = Path(tmp) / f"{name}_reference.csv"
-            write_trajectory(traj, robot.joint_names, t, q, dq, ddq)
-            cmd = [sys.executable, "-m", "ident", "simulate", str(URDF), "--trajectory", str(traj),
-                   "--truth", str(DEMO / "sprout6_truth.yaml"), "--out", str(DEMO / f"sprout6_{name}.csv"),
-                   "--log-rate", str(LOG_RATE), "--torque-noise", ",".join(map(str, TORQUE_NOISE)),
-                   "--seed", str(SEEDS[name])]
-            print(" ".join(cmd[2:]))
-            subprocess.run(cmd, check=True, cwd=ROOT)
+        for name, cfg in (("excite", config), ("heldout", held_config)):
+            cfg_path = Path(tmp) / f"{name}_config.yaml"
+            cfg_path.write_text(yaml.safe_dump(cfg, sort_keys=False))
+            design = Path(tmp) / name
+            run(["excite", str(URDF), "--config", str(cfg_path), "--out", str(design)])
+            run(["simulate", str(URDF), "--trajectory", str(design / "trajectory.csv"),
+                 "--truth", str(DEMO / "sprout6_truth.yaml"), "--out", str(DEMO / f"sprout6_{name}.csv"),
+                 "--log-rate", str(LOG_RATE), "--torque-noise", ",".join(map(str, TORQUE_NOISE)),
+                 "--seed", str(SEEDS[name])])
     PACKAGED.mkdir(exist_ok=True)
     for f in ("sprout6.urdf", "sprout6_truth.yaml", "sprout6_excite.csv", "sprout6_heldout.csv"):
         shutil.copyfile(DEMO / f, PACKAGED / f)
