@@ -262,6 +262,9 @@ BAD_URDF = {
     "entity_bomb": ('<?xml version="1.0"?><!DOCTYPE lolz [<!ENTITY lol "lol"><!ENTITY lol2 "&lol;&lol;&lol;&lol;&lol;&lol;&lol;&lol;">'
                     '<!ENTITY lol3 "&lol2;&lol2;&lol2;&lol2;&lol2;&lol2;&lol2;&lol2;">]><robot name="&lol3;"><link name="base"/></robot>',
                     r"refused unsafe XML"),
+    "external_entity": ('<?xml version="1.0"?><!DOCTYPE r [<!ENTITY leak SYSTEM "file:///etc/passwd">]>'
+                        '<robot name="&leak;"><link name="base"/></robot>', r"refused unsafe XML"),
+    "not_a_robot": ('<sdf version="1.6"><model name="m"/></sdf>', r"root element is <sdf>, expected <robot>"),
     "lower_above_upper": (urdf(GOOD_JOINT.replace('lower="-1" upper="1"', 'lower="1" upper="-1"')), r"joint 'j1': lower limit 1 is above upper limit -1"),
     "nan_origin": (urdf(GOOD_JOINT.replace('<axis', '<origin xyz="0 nan 0"/><axis')), r"joint 'j1' <origin xyz>"),
 }
