@@ -193,6 +193,9 @@ class LogOptions:
     windows : list of (start, end) s, relative to each file's first sample; None = everything.
     delay : torque-channel delay to remove, s (scalar or one per joint; positive = torque lags).
     slow_velocity : |dq| threshold (rad/s or m/s) below which samples are flagged ``slow``.
+    reversal_margin : also flag as ``slow`` the samples within this many seconds of a velocity
+        reversal (s). The parallel low-pass smears the Coulomb torque step over about one cutoff
+        period while sign(dq) switches at once; 0.5 / cutoff is a sensible value with a low cutoff.
     drop_clipped : drop samples where a torque sits at its saturation level (robot effort limit or
         the profile's ``limit``); neighbours within the filter support go too.
     """
@@ -214,6 +217,7 @@ class LogOptions:
     windows: list | None = None
     delay: Any = None
     slow_velocity: float = 0.01
+    reversal_margin: float = 0.0
     drop_clipped: bool = True
 
     @classmethod
@@ -271,7 +275,7 @@ def _check_option(key: str, val, where: str):
     if isinstance(val, bool) or not isinstance(val, (int, float, np.number)) or not math.isfinite(val):
         bad("must be a finite number")
     val = float(val)
-    if key in ("cutoff", "trim", "slow_velocity") and val < 0:
+    if key in ("cutoff", "trim", "slow_velocity", "reversal_margin") and val < 0:
         bad("must not be negative")
     if key in ("max_frequency", "period", "max_gap", "jitter") and val <= 0:
         bad("must be positive")
@@ -1092,6 +1096,8 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
         )
     window = opts.savgol_window or cond.savgol_window(fs, cutoff or 0.25 * fs)
     out = {k: np.empty((allsel.size, n)) for k in ("q", "dq", "ddq", "tau")}
+    slow = np.empty((allsel.size, n), dtype=bool)
+    margin = int(round(opts.reversal_margin * fs))
 
     def filt(x):
         return cond.lowpass(x, fs, cutoff, opts.filter_order, periodic=periodic) if cutoff else np.asarray(x, float)
@@ -1104,6 +1110,11 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
         else:
             v = filt(dq_log[:, k])
         out["dq"][:, k] = v[allsel]
+        flag = np.abs(v) < opts.slow_velocity
+        if margin:
+            rev = (np.diff(np.signbit(v).astype(np.int8)) != 0).astype(np.int32)
+            flag |= np.convolve(np.concatenate([rev, [0]]), np.ones(2 * margin + 1, dtype=np.int32), mode="same") > 0
+        slow[:, k] = flag[allsel]
         if need_ddq:
             a = cond.derivative(v, dt, opts.derivative, window, periodic)
         else:
@@ -1116,8 +1127,7 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
     for s in sel:
         sl = slice(off, off + len(s))
         off += len(s)
-        dqs = out["dq"][sl]
-        segs.append(Segment(seg.source, t[s], out["q"][sl], dqs, out["ddq"][sl], out["tau"][sl], np.abs(dqs) < opts.slow_velocity))
+        segs.append(Segment(seg.source, t[s], out["q"][sl], out["dq"][sl], out["ddq"][sl], out["tau"][sl], slow[sl]))
     return segs
 
 

@@ -243,6 +243,14 @@ def test_slow_samples_flagged(ur5, ur5_log):
     ds = L.load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "slow_velocity": 0.05})
     np.testing.assert_array_equal(ds.slow, np.abs(ds.dq) < 0.05)
     assert ds.slow.any() and not ds.slow.all()
+    # with a margin, samples near a velocity reversal are flagged too, and only those
+    wide = L.load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "slow_velocity": 0.05, "reversal_margin": 0.05})
+    t, dq = wide.t, wide.dq
+    for k in range(ur5.n):
+        rev_t = t[np.flatnonzero(np.diff(np.sign(dq[:, k])) != 0)]
+        near = np.array([np.abs(rev_t - x).min() <= 0.05 + 1e-9 if rev_t.size else False for x in t])
+        inner = (t > t[0] + 0.05) & (t < t[-1] - 0.05)  # reversals in the trimmed edges are not visible here
+        np.testing.assert_array_equal(wide.slow[inner, k], ((np.abs(dq[:, k]) < 0.05) | near)[inner])
 
 
 def test_delay_estimated_and_removed(tmp_path, ur5, ur5_log):

@@ -47,6 +47,8 @@ def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--trim", type=float, metavar="S", help="drop this many seconds at both ends of each segment (default two cutoff periods)")
     g.add_argument("--delay", metavar="S[,S...]", help="torque-channel delay to remove, s (one value, or one per joint)")
     g.add_argument("--slow-velocity", type=float, metavar="V", help="flag samples with |dq| below V (rad/s or m/s) as slow for the Coulomb term (default 0.01)")
+    g.add_argument("--reversal-margin", type=float, metavar="S",
+                   help="also flag samples within S seconds of a velocity reversal as slow (the low-pass smears the Coulomb step; default 0)")
     g.add_argument("--keep-clipped", action="store_true", help="keep samples whose torque sits at the effort limit (default: drop them)")
 
 
@@ -63,6 +65,7 @@ def options_from_args(args: argparse.Namespace) -> dict:
         "max_gap": args.max_gap,
         "trim": args.trim,
         "slow_velocity": args.slow_velocity,
+        "reversal_margin": args.reversal_margin,
     }
     if args.no_average:
         opts["average"] = False
