@@ -92,13 +92,16 @@ def _fig_validation(robot: Robot, val: Validation) -> str:
     n = len(val.joint_names)
     t = _plot_time(val.t)
     stride = max(1, t.size // MAX_POINTS)
-    fig, axes = plt.subplots(n, 2, figsize=(12, 2.1 * n), squeeze=False, gridspec_kw={"width_ratios": [3, 1.2]}, layout="constrained")
+    fig, axes = plt.subplots(n, 2, figsize=(12, 2.1 * n), squeeze=False, gridspec_kw={"width_ratios": [3, 1.2]})
+    # fixed margins: automatic layout engines cost seconds on a figure of this size
+    fig.subplots_adjust(left=0.08, right=0.98, top=1 - 0.25 / (2.1 * n), bottom=0.45 / (2.1 * n), hspace=0.55, wspace=0.22)
     for j, name in enumerate(val.joint_names):
         unit, _ = _units(robot, j)
         ax = axes[j, 0]
         ax.plot(t[::stride], val.measured[::stride, j], color="0.55", lw=0.9, label="measured")
         ax.plot(t[::stride], val.predicted[::stride, j], color="C0", lw=0.9, label="predicted")
-        ax.plot(t[::stride], (val.measured - val.predicted)[::stride, j], color="C3", lw=0.7, label="residual")
+        resid = np.where(val.used[:, j], val.measured[:, j] - val.predicted[:, j], np.nan)  # gaps: samples left out
+        ax.plot(t[::stride], resid[::stride], color="C3", lw=0.7, label="residual (samples used)")
         ax.set_ylabel(f"{name}\ntorque ({unit})", fontsize=8)
         ax.grid(alpha=0.3)
         if j == 0:
@@ -107,8 +110,8 @@ def _fig_validation(robot: Robot, val: Validation) -> str:
             ax.set_xlabel("time (s, held-out logs one after another)")
         res = (val.measured - val.predicted)[val.used[:, j], j]
         ax2 = axes[j, 1]
-        ax2.hist(res, bins=40, color="C3", alpha=0.8)
-        ax2.set_xlabel(f"residual ({unit})", fontsize=8)
+        ax2.hist(res, bins=40, range=tuple(np.percentile(res, [0.5, 99.5])), color="C3", alpha=0.8)
+        ax2.set_xlabel(f"residual ({unit}), central 99 %", fontsize=8)
         ax2.set_ylabel("samples", fontsize=8)
         ax2.set_title(f"RMS {val.rms[j]:.3g} {unit}, R\u00b2 {val.r2[j]:.3f}", fontsize=8)
         ax2.grid(alpha=0.3)
@@ -122,7 +125,9 @@ def _fig_coverage(robot: Robot, q: np.ndarray, dq: np.ndarray) -> str:
     import matplotlib.pyplot as plt
 
     n = robot.n
-    fig, axes = plt.subplots(1, 2, figsize=(12, 0.45 * n + 1.6), layout="constrained")
+    height = 0.45 * n + 1.6
+    fig, axes = plt.subplots(1, 2, figsize=(12, height))
+    fig.subplots_adjust(left=0.12, right=0.98, top=1 - 0.45 / height, bottom=0.55 / height, wspace=0.3)
     y = np.arange(n)
     lo, hi = robot.lower, robot.upper
     for j in range(n):
