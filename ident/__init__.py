@@ -24,3 +24,7 @@ from .logs import Dataset, LogOptions, Segment, apply_delay, estimate_dataset_de
 from .estimate import Bounds, FitResult, fit
 from .payload import PayloadResult, identify_payload
 from .excitation import ExcitationConfig, ExcitationResult, FourierTrajectory, design_excitation, load_excitation_config, load_trajectory, write_excitation
+from .simulate import SimulationResult, SimulationSettings, read_trajectory, simulate, write_log
+from .validate import Validation, validate, validate_dataset
+from .export import export_parameters, export_urdf, export_urdf_text
+from .report import render_report, write_report
