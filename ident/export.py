@@ -8,6 +8,10 @@ Each identified body is written as the link that its joint moves (the URDF child
 the centre of mass with ``rpy="0 0 0"`` (the link's axes) and the inertia about the COM, numbers
 with 17 significant digits so the file reproduces the identified model to machine precision.
 
+With ``friction=True`` each identified joint's ``<dynamics damping=... friction=...>`` element is
+written (or added) from the viscous (fv) and Coulomb (fc) coefficients, the URDF fields simulators
+read. URDF has no field for the armature (rotor inertia): it stays in the parameter file.
+
 Merged bodies: when fixed or locked joints join several links into one identified body (for
 example a gripper bolted to the flange), the parameters identify only their sum. The rule: the
 whole body goes on its root link (the one the joint moves) and the ``<inertial>`` of every other
@@ -34,6 +38,9 @@ _LINK_OPEN = re.compile(r"<link\b[^>]*?>", re.S)
 _NAME = re.compile(r"""\bname\s*=\s*(["'])(.*?)\1""", re.S)
 _INERTIAL = re.compile(r"<inertial\b[^>]*?/>|<inertial\b.*?</inertial\s*>", re.S)
 _COMMENT = re.compile(r"<!--.*?-->", re.S)
+_JOINT_OPEN = re.compile(r"<joint\b[^>]*?>", re.S)
+_TYPE = re.compile(r"""\btype\s*=""")
+_DYNAMICS = re.compile(r"<dynamics\b[^>]*?/>|<dynamics\b.*?</dynamics\s*>", re.S)
 
 
 def _num(x: float) -> str:
@@ -96,12 +103,55 @@ def _line_indent(text: str, pos: int) -> str:
     return head if head.strip() == "" else ""
 
 
-def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "URDF") -> str:
+def _joint_spans(text: str, masked: str) -> dict[str, tuple[int, int, int, int]]:
+    """{joint name: (start, open_end, close_start, end)} of the top-level ``<joint type=...>`` elements
+    (``<joint>`` inside ``<transmission>`` has no type and is skipped)."""
+    spans = {}
+    for m in _JOINT_OPEN.finditer(masked):
+        opener = m.group(0)
+        nm = _NAME.search(opener)
+        if nm is None or not _TYPE.search(opener):
+            continue
+        if opener.rstrip().endswith("/>"):
+            spans[nm.group(2)] = (m.start(), m.end(), m.end(), m.end())
+            continue
+        close = masked.find("</joint", m.end())
+        spans[nm.group(2)] = (m.start(), m.end(), close, masked.find(">", close) + 1)
+    return spans
+
+
+def _friction_edits(text: str, masked: str, robot: Robot, ps: ParameterSet, where: str) -> list[tuple[int, int, str]]:
+    if "fv" not in ps.joint_params and "fc" not in ps.joint_params:
+        raise IdentError("friction export: the parameter set has no viscous (fv) or Coulomb (fc) terms")
+    spans = _joint_spans(text, masked)
+    edits = []
+    for i, joint in enumerate(robot.joint_names):
+        if joint not in spans:
+            raise ModelError(f"{where}: joint '{joint}' of the model is not in the file")
+        fv = float(ps.joint_params.get("fv", np.zeros(robot.n))[i])
+        fc = float(ps.joint_params.get("fc", np.zeros(robot.n))[i])
+        if fv < 0 or fc < 0:
+            raise IdentError(f"cannot export joint '{joint}': negative friction (fv {fv:g}, fc {fc:g}); use a consistent fit")
+        element = f'<dynamics damping="{_num(fv)}" friction="{_num(fc)}"/>'
+        start, open_end, close_start, end = spans[joint]
+        found = _DYNAMICS.search(masked[open_end:close_start])
+        if found is not None:
+            edits.append((open_end + found.start(), open_end + found.end(), element))
+        elif open_end == end:
+            raise ModelError(f"{where}: joint '{joint}' is an empty element")
+        else:
+            indent = _line_indent(text, start)
+            edits.append((close_start, close_start, f"  {element}\n{indent}"))
+    return edits
+
+
+def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "URDF", friction: bool = False) -> str:
     """Rewrite the ``<inertial>`` elements of `text` (the URDF `robot` was loaded from) with `ps`.
 
     Raises :class:`IdentError` naming the link when a body is not physically consistent (it has no
     URDF form: mass <= 0 or an inertia about the COM that is not positive definite or violates the
     triangle inequality), and :class:`ModelError` when a link of the model is missing from `text`.
+    `friction` also writes each joint's ``<dynamics damping friction>`` from fv and fc.
     """
     ps = ps.check_robot(robot, where="parameter set")
     for i, body in enumerate(robot.body_names):
@@ -136,13 +186,15 @@ def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "UR
             elif found is not None:
                 a, b = open_end + found.start(), open_end + found.end()
                 edits.append((a, b, f"<!-- inertial moved to link '{group[0]}' (merged body) by ident export -->"))
+    if friction:
+        edits += _friction_edits(text, masked, robot, ps, where)
     out = text
     for a, b, rep in sorted(edits, key=lambda e: e[0], reverse=True):
         out = out[:a] + rep + out[b:]
     return out
 
 
-def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path) -> None:
+def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path, friction: bool = False) -> None:
     """Write a copy of `urdf_path` with the identified inertial elements (see :func:`export_urdf_text`), atomically."""
     p = Path(urdf_path)
     if robot.source_kind != "urdf":
@@ -151,7 +203,7 @@ def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path) -> None:
         text = p.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise ModelError(f"{p}: cannot read ({exc})") from None
-    write_text(out_path, export_urdf_text(text, robot, ps, where=str(p)))
+    write_text(out_path, export_urdf_text(text, robot, ps, where=str(p), friction=friction))
 
 
 def export_parameters(ps: ParameterSet, out_path, fmt: str) -> None:

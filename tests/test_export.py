@@ -146,3 +146,24 @@ def test_export_of_another_robots_parameters_is_refused(tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "does not belong" in err
     assert not out.exists()
+
+
+@pytest.mark.parametrize("rel", [UR5, "demo"])  # UR5 has <dynamics> and <transmission> joints; the demo arm has neither
+def test_friction_export_is_read_by_pin(tmp_path, rel):
+    path = DEMO_URDF if rel == "demo" else erd_path(rel)
+    robot = ident.load_robot(path)
+    fv, fc, ia = np.linspace(0.1, 0.6, robot.n), np.linspace(2.0, 0.5, robot.n), np.full(robot.n, 0.05)
+    full = np.concatenate([perturbed(robot, 4).ravel(), np.column_stack([fv, fc, ia]).ravel()])
+    params = tmp_path / "p.yaml"
+    save_parameters(params, parameter_set_from_vector(robot, full, ("fv", "fc", "ia")))
+    out = tmp_path / "with_friction.urdf"
+    assert main(["export", str(params), "--urdf", str(path), "--out", str(out), "--with-friction", "--quiet"]) == 0
+    # reference library: pin parses URDF <dynamics damping friction> into model.damping / model.friction
+    pin, model = pin_model(out)
+    assert np.allclose(model.damping, fv, rtol=1e-15) and np.allclose(model.friction, fc, rtol=1e-15)
+    text = out.read_text()
+    assert text.count("<dynamics") == robot.n
+    if rel == UR5:  # transmissions untouched
+        src = path.read_text()
+        tr = re.compile(r"<transmission\b.*?</transmission>", re.S)
+        assert tr.findall(src) == tr.findall(text)

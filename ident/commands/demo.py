@@ -16,6 +16,7 @@ from ..export import export_urdf
 from ..logs import Dataset, Segment, load_dataset
 from ..model import load_robot
 from ..paramfile import load_parameters, save_parameters
+from ..progress import Progress
 from ..report import write_report
 from ..validate import validate_dataset
 from .common import print_json
@@ -101,9 +102,9 @@ def run(args) -> int:
     held = load_dataset([src / HELDOUT_LOG], robot=robot, options=LOG_OPTIONS)
     moving = moving_samples(fit_data)
     say(f"1/4 fit: consistent method, terms {', '.join(TERMS)}, {moving.n_samples} moving samples of {FIT_LOG}")
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), Progress(moving.n_samples, "fit", enabled=talk) as bar:
         warnings.simplefilter("ignore")  # the fit records its warnings in the result; they go to the report
-        result = fit(robot, moving, method="consistent", terms=TERMS, progress=None)
+        result = fit(robot, moving, method="consistent", terms=TERMS, progress=lambda done, total: bar.update(done, "compressing"))
     ps = result.to_parameter_set(data={"logs": [FIT_LOG], "conditioning": dict(LOG_OPTIONS), "samples": "moving samples only"})
     params_path = out / "sprout6_identified.yaml"
     save_parameters(params_path, ps)

@@ -14,11 +14,13 @@ EXAMPLE = """\
 examples:
   ident export identified.yaml --urdf arm.urdf --out arm_identified.urdf
   ident export identified.yaml --urdf panda.urdf --lock panda_finger_joint1=0.02,panda_finger_joint2=0.02 --out panda_id.urdf
+  ident export identified.yaml --urdf arm.urdf --with-friction --out arm_for_simulation.urdf
   ident export identified.yaml --format json --out identified.json
 
 URDF: only the <inertial> elements of the identified links change (COM origin and inertia at the
 COM); everything else is kept byte-for-byte. Links merged into one body by fixed or locked joints
 get the whole body on the link the joint moves. Physically impossible parameters are refused.
+--with-friction writes <dynamics damping="fv" friction="fc"> per joint; the armature has no URDF field.
 """
 
 
@@ -35,6 +37,7 @@ def add_parser(sub) -> None:
     p.add_argument("--urdf", metavar="URDF", help="the robot's URDF (the one the parameters were identified for)")
     add_robot_arguments(p, positional=False)
     p.add_argument("--out", required=True, metavar="FILE", help="file to write")
+    p.add_argument("--with-friction", action="store_true", help="URDF: also write each joint's <dynamics damping friction> from fv and fc")
     p.add_argument("--format", choices=("urdf", "json", "yaml"), help="output format (default: urdf with --urdf, else from the --out suffix)")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.add_argument("--json", action="store_true", help="print what was written as JSON")
@@ -61,7 +64,7 @@ def run(args) -> int:
         args.robot = args.urdf
         robot = robot_from_args(args)
         ps = load_parameters(args.params, robot)
-        export_urdf(args.urdf, robot, ps, args.out)
+        export_urdf(args.urdf, robot, ps, args.out, friction=args.with_friction)
         links = [g[0] for g in robot.merged]
     else:
         if args.urdf:
