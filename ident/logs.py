@@ -194,8 +194,9 @@ class LogOptions:
     delay : torque-channel delay to remove, s (scalar or one per joint; positive = torque lags).
     slow_velocity : |dq| threshold (rad/s or m/s) below which samples are flagged ``slow``.
     reversal_margin : also flag as ``slow`` the samples within this many seconds of a velocity
-        reversal (s). The parallel low-pass smears the Coulomb torque step over about one cutoff
-        period while sign(dq) switches at once; 0.5 / cutoff is a sensible value with a low cutoff.
+        reversal (s); None = a quarter cutoff period (0 without a low-pass). The parallel low-pass
+        smears the Coulomb torque step over about a cutoff period while sign(dq) switches at once,
+        which biases the Coulomb and viscous estimates unless those samples are left out.
     drop_clipped : drop samples where a torque sits at its saturation level (robot effort limit or
         the profile's ``limit``); neighbours within the filter support go too.
     """
@@ -217,7 +218,7 @@ class LogOptions:
     windows: list | None = None
     delay: Any = None
     slow_velocity: float = 0.01
-    reversal_margin: float = 0.0
+    reversal_margin: float | None = None
     drop_clipped: bool = True
 
     @classmethod
@@ -1097,7 +1098,10 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
     window = opts.savgol_window or cond.savgol_window(fs, cutoff or 0.25 * fs)
     out = {k: np.empty((allsel.size, n)) for k in ("q", "dq", "ddq", "tau")}
     slow = np.empty((allsel.size, n), dtype=bool)
-    margin = int(round(opts.reversal_margin * fs))
+    if opts.reversal_margin is not None:
+        margin = int(round(opts.reversal_margin * fs))
+    else:
+        margin = int(round(0.25 / cutoff * fs)) if cutoff else 0
 
     def filt(x):
         return cond.lowpass(x, fs, cutoff, opts.filter_order, periodic=periodic) if cutoff else np.asarray(x, float)

@@ -48,7 +48,7 @@ def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--delay", metavar="S[,S...]", help="torque-channel delay to remove, s (one value, or one per joint)")
     g.add_argument("--slow-velocity", type=float, metavar="V", help="flag samples with |dq| below V (rad/s or m/s) as slow for the Coulomb term (default 0.01)")
     g.add_argument("--reversal-margin", type=float, metavar="S",
-                   help="also flag samples within S seconds of a velocity reversal as slow (the low-pass smears the Coulomb step; default 0)")
+                   help="also flag samples within S seconds of a velocity reversal as slow (the low-pass smears the Coulomb step; default a quarter cutoff period)")
     g.add_argument("--keep-clipped", action="store_true", help="keep samples whose torque sits at the effort limit (default: drop them)")
 
 
