@@ -48,28 +48,26 @@ def states(robot, N: int, seed: int = 0):
     return q, dq, ddq
 
 
-def time_ident(robot, q, dq, ddq, repeat: int, mode: str) -> float:
-    """Best time per sample (us) of iter_regressor over the whole log with threading `mode`."""
+def ident_runner(robot, q, dq, ddq, mode: str):
+    """A callable that streams the regressor of the whole log once with threading `mode`."""
     from ident import kernels
     from ident.regressor import iter_regressor
 
-    previous = kernels.set_threading(mode)
-    try:
-        checksum = 0.0
-        for _, Y in iter_regressor(robot, q[:4096], dq[:4096], ddq[:4096]):  # compile / warm caches
-            checksum += Y[0, 0, 0]
-        best = np.inf
-        for _ in range(repeat):
-            t0 = time.perf_counter()
+    def run():
+        previous = kernels.set_threading(mode)
+        try:
+            checksum = 0.0
             for _, Y in iter_regressor(robot, q, dq, ddq):
                 checksum += Y[-1, -1, -1]  # touch the chunk so nothing is optimised away
-            best = min(best, time.perf_counter() - t0)
-    finally:
-        kernels.set_threading(previous)
-    return best / q.shape[0] * 1e6
+        finally:
+            kernels.set_threading(previous)
+        return checksum
+
+    return run
 
 
-def time_pin(q, dq, ddq, repeat: int, n_pin: int) -> float:
+def pin_runner(q, dq, ddq):
+    """A callable that runs pin.computeJointTorqueRegressor once per sample from Python."""
     import pinocchio as pin
 
     model = pin.buildModelFromUrdf(str(panda_path()))
@@ -79,14 +77,26 @@ def time_pin(q, dq, ddq, repeat: int, n_pin: int) -> float:
         q_ref[model.joints[model.getJointId(name)].idx_q] = val
     model = pin.buildReducedModel(model, ids, q_ref)
     data = model.createData()
-    m = min(n_pin, q.shape[0])
-    best = np.inf
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        for s in range(m):
+
+    def run():
+        for s in range(q.shape[0]):
             pin.computeJointTorqueRegressor(model, data, q[s], dq[s], ddq[s])
-        best = min(best, time.perf_counter() - t0)
-    return best / m * 1e6
+
+    return run
+
+
+def measure(runners: dict, samples: dict, repeat: int) -> dict:
+    """Best wall and CPU time per sample (us) of each runner, rounds interleaved so that every
+    runner sees the same spells of machine load."""
+    best = {k: [np.inf, np.inf] for k in runners}
+    for _ in range(repeat):
+        for k, run in runners.items():
+            w0, c0 = time.perf_counter(), time.process_time()
+            run()
+            w, c = time.perf_counter() - w0, time.process_time() - c0
+            best[k][0] = min(best[k][0], w / samples[k] * 1e6)
+            best[k][1] = min(best[k][1], c / samples[k] * 1e6)
+    return best
 
 
 def memory_child(N: int) -> None:
@@ -126,22 +136,32 @@ def main(argv=None) -> int:
     print(f"machine: {os.cpu_count()} CPUs, numba threads {numba.get_num_threads()}, load average {os.getloadavg()[0]:.2f}")
     from ident import kernels
 
-    print(f"threads chosen by the automatic rule for a {2048}-sample chunk now: {kernels.use_threads(2048)}")
-    results = {}
-    for mode, label in (("off", "1 thread"), ("on", f"{numba.get_num_threads()} threads"), ("auto", "automatic")):
+    print(f"threads chosen by the automatic rule for a 2048-sample chunk now: {kernels.use_threads(2048)}")
+    runners, samples = {}, {}
+    for mode in ("off", "on", "auto"):
         if mode == "on" and numba.get_num_threads() < 2:
             continue
-        results[mode] = time_ident(robot, q, dq, ddq, args.repeat, mode)
-        print(f"ident iter_regressor ({label:>9s}) N={args.samples:>8d}: {results[mode]:7.3f} us/sample (best of {args.repeat})")
-    ours = min(results.values())
+        runners[f"ident {mode}"] = ident_runner(robot, q, dq, ddq, mode)
+        samples[f"ident {mode}"] = q.shape[0]
+    for run in runners.values():
+        run()  # compile (or load from the cache) and warm up
     try:
-        theirs = time_pin(q, dq, ddq, args.repeat, args.pin_samples)
+        m = min(args.pin_samples, args.samples)
+        runners["pin loop"] = pin_runner(q[:m], dq[:m], ddq[:m])
+        samples["pin loop"] = m
     except ImportError:
         print("pin not installed: no reference timing")
-    else:
-        print(f"pin computeJointTorqueRegressor loop N={min(args.pin_samples, args.samples):>8d}: {theirs:7.3f} us/sample (best of {args.repeat})")
-        for mode, t in results.items():
-            print(f"speed-up ident ({mode}) / pin loop: {theirs / t:.2f}x")
+    best = measure(runners, samples, args.repeat)
+    labels = {"ident off": "ident iter_regressor, 1 thread", "ident on": f"ident iter_regressor, {numba.get_num_threads()} threads",
+              "ident auto": "ident iter_regressor, automatic", "pin loop": "pin computeJointTorqueRegressor loop"}
+    print(f"best of {args.repeat} interleaved rounds; wall clock and CPU time (the CPU time of a threaded run sums its threads)")
+    for k, (wall, cpu) in best.items():
+        print(f"  {labels[k]:<40s} N={samples[k]:>7d}: {wall:7.3f} us/sample wall, {cpu:7.3f} us/sample CPU")
+    if "pin loop" in best:
+        ref = best["pin loop"]
+        for k in runners:
+            if k != "pin loop":
+                print(f"  speed-up {labels[k]:<33s} over the pin loop: {ref[0] / best[k][0]:5.2f}x wall, {ref[1] / best[k][1]:5.2f}x CPU")
     if args.memory_samples:
         out = subprocess.run(
             [sys.executable, __file__, "--memory-child", str(args.memory_samples)],
