@@ -167,5 +167,11 @@ def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sour
 def validate_dataset(robot: Robot, ps: ParameterSet, data) -> Validation:
     """:func:`validate` on an :class:`ident.logs.Dataset` (its ``slow`` flags are honoured)."""
     slow = getattr(data, "slow", None)
-    srcs = [f["path"] for f in data.info.get("files", [])] if getattr(data, "info", None) else []
-    return validate(robot, ps, data.t, data.q, data.dq, data.ddq, data.tau, slow, srcs)
+    info = getattr(data, "info", None) or {}
+    srcs = [f["path"] for f in info.get("files", [])]
+    val = validate(robot, ps, data.t, data.q, data.dq, data.ddq, data.tau, slow, srcs)
+    if info.get("cutoff"):
+        # parallel filtering: the measured torque went through the positions' low-pass, which also
+        # removes the part of its noise above the cutoff
+        val.notes.append(f"measured torque low-pass filtered at {info['cutoff']:g} Hz like the positions (parallel filtering)")
+    return val
