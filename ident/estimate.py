@@ -50,11 +50,11 @@ import numpy as np
 import scipy.linalg
 
 from .base import BaseParameters
-from .compress import Compressor, Reduced, compress
+from .compress import Compressor, Reduced, compress, single_thread_blas
 from .errors import IdentError, NumericalError
 from .model import Robot
 from .paramfile import BaseTable, ParameterSet, parameter_set_from_vector
-from .spatial import from_vector, pseudo_inertia
+from .spatial import from_pseudo_inertia, from_vector, pseudo_inertia
 
 METHODS = ("ols", "wls", "consistent")
 #: Default joint terms (the CLI's default too).
@@ -402,6 +402,12 @@ def _check_method(method: str) -> None:
 def fit_compressed(comp: Compressor, method: str = "ols", *, bounds: Bounds | None = None, prior=None,
                    regularization: float = REGULARIZATION, solver: str = "CLARABEL") -> FitResult:
     """:func:`fit` on data already compressed into a :class:`ident.compress.Compressor`."""
+    # The matrices here are a few dozen wide: BLAS threads only cost synchronisation.
+    with single_thread_blas():
+        return _fit_compressed(comp, method, bounds, prior, regularization, solver)
+
+
+def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization: float, solver: str) -> FitResult:
     _check_method(method)
     robot, bp = comp.robot, comp.base
     bounds = bounds or Bounds()
@@ -511,15 +517,6 @@ def _regularized_prior(J0: np.ndarray) -> np.ndarray:
     return out
 
 
-def _pi_of_J(J) -> list:
-    """cvxpy expressions of the 10 parameters of a 4x4 pseudo-inertia variable (linear)."""
-    S = J[:3, :3]
-    return [
-        J[3, 3], J[0, 3], J[1, 3], J[2, 3],
-        S[1, 1] + S[2, 2], -S[0, 1], -S[0, 2], S[0, 0] + S[2, 2], -S[1, 2], S[0, 0] + S[1, 1],
-    ]
-
-
 def _sqrtm(J: np.ndarray) -> np.ndarray:
     ev, V = np.linalg.eigh(J)
     return (V * np.sqrt(ev)) @ V.T
@@ -537,18 +534,24 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
     # d(J_i, J0_i) = -log det X_i + tr X_i + const. Joint terms are scaled by their data columns.
     roots = [_sqrtm(J) for J in J0]
     Xs = [cp.Variable((4, 4), PSD=True) for _ in range(n)]
-    Js = [roots[i] @ Xs[i] @ roots[i] for i in range(n)]
-    A = red_w.R @ P  # (b, p): weighted data rows in the full parameters
-    parts = [cp.hstack(_pi_of_J(J)) for J in Js]
-    t = None
+    # One constant matrix maps every X entry to the full parameters (cheap to canonicalize):
+    # column 16 i + 4 l + k of M is the 10-vector of J_i = root_i E_kl root_i (vec order F).
+    nz = 16 * n + n * nt
+    M = np.zeros((10 * n + n * nt, nz))
+    E = np.zeros((16, 4, 4))
+    E[np.arange(16), np.arange(16) % 4, np.arange(16) // 4] = 1.0
+    for i, r in enumerate(roots):
+        M[10 * i : 10 * i + 10, 16 * i : 16 * i + 16] = from_pseudo_inertia(r @ E @ r).T
+    parts = [cp.vec(X, order="F") for X in Xs]
     if nt:
         # Joint terms in units of the unconstrained estimate's magnitudes, so u is O(1).
         t_ls = np.abs(wls_full[10 * n :])
         tscale = np.maximum(t_ls, 1e-2 * t_ls.max()) if t_ls.max() > 0 else np.ones(n * nt)
         u = cp.Variable(n * nt)
-        t = cp.multiply(tscale, u)
-        parts.append(t)
-    x = cp.hstack(parts)
+        M[10 * n :, 16 * n :] = np.diag(tscale)
+        parts.append(u)
+    z = cp.hstack(parts)
+    x = M @ z
     cons = []
     if nt:
         for k, code in enumerate(terms):
@@ -556,13 +559,13 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
                 cons.append(u[k::nt] >= 0)
     for body, (lo, hi) in bounds.mass.items():
         i = robot.body_names.index(body)
-        cons += [Js[i][3, 3] >= lo, Js[i][3, 3] <= hi]
+        cons += [x[10 * i] >= lo, x[10 * i] <= hi]
     for body, (lo, hi) in bounds.com.items():
         i = robot.body_names.index(body)
-        m, h = Js[i][3, 3], Js[i][:3, 3]
+        m, h = x[10 * i], x[10 * i + 1 : 10 * i + 4]
         cons += [h >= m * np.asarray(lo, float), h <= m * np.asarray(hi, float)]
     if bounds.total_mass is not None:
-        cons.append(sum(J[3, 3] for J in Js) == bounds.total_mass)
+        cons.append(cp.sum(x[0 : 10 * n : 10]) == bounds.total_mass)
     div = sum(-cp.log_det(X) + cp.trace(X) for X in Xs)
     info = {"solver": solver, "regularization": gamma}
     t0 = time.perf_counter()
@@ -570,10 +573,10 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
     if not wls.rank_deficient:
         # Equality rows scaled to O(1) so the solver's feasibility tolerance is relative.
         rs = 1.0 / np.maximum(np.abs(P).max(axis=1) * np.maximum(np.abs(wls.beta), 1e-3), 1e-12)
-        prob = cp.Problem(cp.Minimize(div), cons + [cp.multiply(rs, P @ x) == rs * wls.beta])
+        prob = cp.Problem(cp.Minimize(div), cons + [((rs[:, None] * P) @ M) @ z == rs * wls.beta])
         status = _solve_problem(prob, solver)
-        if status in ("optimal", "optimal_inaccurate") and x.value is not None:
-            full = _polish(np.asarray(x.value, float), P, wls.beta, n)
+        if status in ("optimal", "optimal_inaccurate") and z.value is not None:
+            full = _polish(M @ np.asarray(z.value, float), P, wls.beta, n)
             info.update(stage="exact", status=status)
     if full is None:
         dof = max(red_w.rows - b, 1)
@@ -582,7 +585,7 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
         # numerically hopeless; a noise level of 1e-4 of the (weighted) RMS torque is far below
         # any real sensor.
         s2 = max(s2, 1e-8 * (float(red_w.z @ red_w.z) + red_w.rho**2) / red_w.rows)
-        obj = cp.sum_squares((A / np.sqrt(s2)) @ x - red_w.z / np.sqrt(s2)) + gamma * div
+        obj = cp.sum_squares(((red_w.R @ P @ M) / np.sqrt(s2)) @ z - red_w.z / np.sqrt(s2)) + gamma * div
         if nt:
             # Joint terms have no prior: a ridge far weaker than any data (u is in units of the
             # unconstrained estimate) only keeps a completely unseen term bounded; a stronger one
@@ -590,9 +593,9 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
             obj = obj + 1e-6 * gamma * cp.sum_squares(u)
         prob = cp.Problem(cp.Minimize(obj), cons)
         status = _solve_problem(prob, solver)
-        if status not in ("optimal", "optimal_inaccurate") or x.value is None:
+        if status not in ("optimal", "optimal_inaccurate") or z.value is None:
             raise NumericalError(f"consistent fit: solver {solver} ended with status '{status}' (check the bounds: they may be infeasible)")
-        full = np.asarray(x.value, float)
+        full = M @ np.asarray(z.value, float)
         info.update(stage="trade-off", status=status)
     info["seconds"] = round(time.perf_counter() - t0, 3)
     if info["status"] == "optimal_inaccurate":
@@ -607,7 +610,7 @@ def _solve_problem(prob, solver: str) -> str:
         with warnings.catch_warnings():
             # cvxpy warns about inaccurate solutions; the status is checked by the caller.
             warnings.simplefilter("ignore", UserWarning)
-            prob.solve(solver=solver)
+            prob.solve(solver=solver, ignore_dpp=True)  # no cvxpy Parameters: skip DPP analysis
     except cp.error.SolverError as exc:
         if "not installed" in str(exc) or "not recognized" in str(exc).lower():
             raise IdentError(f"solver: {exc}") from None

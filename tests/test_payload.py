@@ -16,6 +16,7 @@ import pinocchio as pin
 import pytest
 
 import ident
+from ident.cli import main
 from ident.errors import DataError, IdentError
 from ident.paramfile import parameter_set_from_vector, save_parameters
 from ident.payload import identify_payload, load_payload
@@ -134,7 +135,7 @@ def _write_log(path, robot, q, dq, ddq, tau, dt=0.01):
     pd.DataFrame(cols).to_csv(path, index=False, float_format="%.12g")
 
 
-def test_payload_cli(panda_case, tmp_path):
+def test_payload_cli(panda_case, tmp_path, capsys):
     robot, model, arm = panda_case
     rng = np.random.default_rng(25)
     q, dq, ddq = sine_trajectory(robot, 1500, rng, amplitude=0.6, dt=0.01)
@@ -159,8 +160,7 @@ def test_payload_cli(panda_case, tmp_path):
     ur5 = ident.load_robot(erd_path(UR5))
     save_parameters(other, parameter_set_from_vector(ur5, ur5.prior.reshape(-1)))
     out2 = tmp_path / "never.yaml"
-    cmd = [sys.executable, "-m", "ident", "payload", urdf, str(other), str(log), "--out", str(out2), *common]
-    run = subprocess.run(cmd, capture_output=True, text=True)
-    assert run.returncode == 2
-    assert len(run.stderr.strip().splitlines()) == 1 and "does not belong" in run.stderr
+    assert main(["payload", urdf, str(other), str(log), "--out", str(out2), *common]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "does not belong" in err[0]
     assert not out2.exists()
