@@ -186,8 +186,8 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
 
     links = [LinkSpec(base), LinkSpec("dh0")]
     specs = [JointSpec("dh0_fixed", "fixed", base, "dh0", np.eye(3), np.zeros(3), np.array([0.0, 0.0, 1.0]))]
-    # E = transform from a body frame to its DH frame (standard: Tx(a) Rx(alpha); modified: identity)
     prev_frame = "dh0"
+    largest_length = 0.0  # in the file's unit, to catch metres declared as millimetres
     used = {base, "dh0"}
     for i, row in enumerate(rows):
         place = f"joints[{i}]"
@@ -206,6 +206,8 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
             rd.fail(f"{place}.{const_key}", f"'q' marks the variable, which for a {jtype} joint is {var_key}, not {const_key}")
         a = length(row["a"], place + ".a")
         alpha = angle(row["alpha"], place + ".alpha")
+        if units["angle"] == "deg" and min(abs(abs(alpha / ang) - np.pi / 2), abs(abs(alpha / ang) - np.pi)) < 1e-3:
+            rd.fail(place + ".alpha", f"{row['alpha']} deg looks like radians (pi/2 or pi): is units.angle right?")
         if jtype == "revolute":
             d = length(row["d"], place + ".d")
             offset = angle(row.get("offset", 0.0), place + ".offset")
@@ -216,6 +218,7 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
             offset = length(row.get("offset", 0.0), place + ".offset")
             d = 0.0
             unit = lng
+        largest_length = max(largest_length, abs(a), abs(d), abs(offset) if jtype == "prismatic" else 0.0)
 
         lim = rd.mapping(row.get("limits", {}), place + ".limits", _LIMIT_KEYS)
         lower = rd.number(lim["lower"], place + ".limits.lower") * unit if "lower" in lim else -np.inf
@@ -255,6 +258,8 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
         specs.append(JointSpec(f"dh{i + 1}_fixed", "fixed", lname, f"dh{i + 1}", to_dh[0], to_dh[1], np.array([0.0, 0.0, 1.0])))
         prev_frame = f"dh{i + 1}"
 
+    if units["length"] == "mm" and 0.0 < largest_length < 5e-3:
+        rd.fail("units.length", f"every length in the table is below 5 mm (largest {largest_length * 1e3:g} mm): are they in metres?")
     if "tool" in top:
         tool = rd.mapping(top["tool"], "tool", _TOOL_KEYS, ("name",))
         tname = rd.name(tool["name"], "tool.name")

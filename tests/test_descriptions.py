@@ -310,6 +310,8 @@ BAD_DH = {
     "length_unit": (edit(["units", "length"], "inch"), r"units.length: expected one of m, mm, got 'inch'"),
     "angle_in_degrees_declared_rad": (edit(["joints", 2, "alpha"], 90), r"joint 'twist'.alpha: 90 rad is more than a full turn: is units.angle right\?"),
     "length_in_mm_declared_m": (edit(["joints", 0, "d"], 200), r"joint 'swing'.d: 200 m is 200 m, implausible .* units.length"),
+    "metres_declared_mm": (edit(["units", "length"], "mm"), r"units.length: every length in the table is below 5 mm \(largest 0.2 mm\): are they in metres\?"),
+    "radians_declared_deg": (edit(["units", "angle"], "deg"), r"joint 'reach'.alpha: -1.5707963267948966 deg looks like radians"),
     "unknown_joint_key": (edit(["joints", 0, "gear"], 100), r"joint 'swing': unknown key\(s\) gear"),
     "missing_dh_number": (edit(["joints", 1, "a"], delete=True), r"joint 'reach': missing key 'a'"),
     "variable_not_marked": (edit(["joints", 0, "theta"], 0.0), r"joint 'swing'.theta: a revolute joint's variable is theta"),
