@@ -20,6 +20,8 @@ import numba
 import numpy as np
 from numba import njit, prange
 
+from .errors import IdentError
+
 _OPTS = dict(cache=True, nogil=True, fastmath=False)
 _INLINE = dict(_OPTS, inline="always")
 
@@ -266,8 +268,6 @@ def set_threading(mode: str) -> str:
     """
     global _THREADING
     if mode not in ("auto", "on", "off"):
-        from .errors import IdentError
-
         raise IdentError(f"threading mode: expected 'auto', 'on' or 'off', got {mode!r}")
     if os.getpid() != _PARENT_PID:
         mode = "off"  # see _after_fork_in_child
