@@ -264,12 +264,14 @@ def _consistent_payload(R: np.ndarray, z: np.ndarray, solver: str) -> np.ndarray
     import cvxpy as cp
 
     J = cp.Variable((4, 4), PSD=True)
-    S = J[:3, :3]
-    pi = cp.hstack([J[3, 3], J[0, 3], J[1, 3], J[2, 3], S[1, 1] + S[2, 2], -S[0, 1], -S[0, 2], S[0, 0] + S[2, 2], -S[1, 2], S[0, 0] + S[1, 1]])
+    # pseudo-inertia -> 10 parameters is linear: one constant matrix on vec(J) (order F).
+    E = np.zeros((16, 4, 4))
+    E[np.arange(16), np.arange(16) % 4, np.arange(16) // 4] = 1.0
+    pi = from_pseudo_inertia(E).T @ cp.vec(J, order="F")
     scale = max(np.abs(R).max(), 1e-300)
     prob = cp.Problem(cp.Minimize(cp.sum_squares((R / scale) @ pi - z / scale)))
     try:
-        prob.solve(solver=solver)
+        prob.solve(solver=solver, ignore_dpp=True)
     except (cp.error.SolverError, ValueError) as exc:
         raise NumericalError(f"payload: solver {solver} failed ({exc})") from None
     if prob.status not in ("optimal", "optimal_inaccurate") or J.value is None:
