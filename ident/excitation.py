@@ -58,6 +58,11 @@ _KEEPOUT_SCALE = 0.1
 #: between check samples (kinematic limits get an analytic cushion instead).
 _TORQUE_CUSHION = 2e-3
 _KEEPOUT_CUSHION = 1e-3
+#: Condition number beyond which a design is refused: the base parameters would be numerically
+#: unidentifiable (common practice regards values above a few hundred as already poor).
+_COND_UNUSABLE = 1e6
+#: Random directions screened for each optimizer start.
+_SCREEN = 8
 #: Penalty weights of the successive L-BFGS-B stages of each start.
 _PENALTY_STAGES = (1e2, 1e4, 1e6)
 
@@ -328,7 +333,7 @@ class ExcitationConfig:
     starts: int = 6
     budget: float | None = 60.0
     max_iterations: int = 300
-    design_samples: int = 200
+    design_samples: int = 120
     check_factor: int = 10
     source: str = "config"
 
@@ -435,7 +440,7 @@ class ExcitationConfig:
             starts=_int(opt.get("starts", 6), f"{where}: optimizer.starts", 1),
             budget=budget,
             max_iterations=_int(opt.get("max_iterations", 300), f"{where}: optimizer.max_iterations", 1),
-            design_samples=_int(opt.get("design_samples", 200), f"{where}: optimizer.design_samples", 8),
+            design_samples=_int(opt.get("design_samples", max(96, 24 * harmonics)), f"{where}: optimizer.design_samples", 8),
             check_factor=_int(opt.get("check_factor", 10), f"{where}: optimizer.check_factor", 1),
             source=where,
         )
@@ -982,6 +987,19 @@ class _Problem:
             s = min(s, float(np.nanmin(up)), float(np.nanmin(dn)))
         return max(s, 0.0)
 
+    def screened_start(self, rng: np.random.Generator, candidates: int = _SCREEN) -> np.ndarray:
+        """The best of `candidates` random directions, each scaled to its kinematic limits (cheap:
+        no torque or keep-out check), by the design criterion."""
+        best, best_val = None, math.inf
+        for _ in range(candidates):
+            z = self.random_z(rng)
+            X = self.coeffs(z, self._kinematic_scale(z, math.inf))
+            c = self.criterion(X)
+            val = c["cond"] if self.cfg.criterion == "cond" else -c["logdet"]
+            if best is None or val < best_val:
+                best, best_val = z, val
+        return best
+
     def random_z(self, rng: np.random.Generator) -> np.ndarray:
         """Random null-space coordinates; harmonic l weighted 1/l so low harmonics dominate."""
         L = self.cfg.harmonics
@@ -1119,11 +1137,15 @@ def _design(robot: Robot, cfg: ExcitationConfig, logs, progress: bool, max_evalu
             if now > deadline and best is not None:
                 budget_hit = True
                 break
-            # each start gets an equal share of what is left of the budget
-            prob.deadline = now + (deadline - now) / (cfg.starts - k) if math.isfinite(deadline) else math.inf
-            z0 = prob.random_z(rng)
+            z0 = prob.screened_start(rng)
+            t_rep = time.monotonic()
             s0, _ = prob.repair(z0, s_max=math.inf)
+            t_rep = time.monotonic() - t_rep
             z = z0 * s0
+            # each start gets an equal share of what is left of the budget, less the time its
+            # closing repair and (for the last) the final checks take, so the budget is kept
+            share = (deadline - now) / (cfg.starts - k)
+            prob.deadline = now + share - (3.0 if k == cfg.starts - 1 else 1.5) * t_rep if math.isfinite(deadline) else math.inf
             init = prob.criterion(prob.coeffs(z))[crit_name]
             prob.evals = 0
             prob.eval_cap = per_start_cap
@@ -1171,8 +1193,8 @@ def _design(robot: Robot, cfg: ExcitationConfig, logs, progress: bool, max_evalu
     crit_new = criteria_from_information(A_new)
     crit_all = criteria_from_information(A_new + A0) if A0 is not None else crit_new
     crit_prior = criteria_from_information(A0) if A0 is not None else None
-    if not np.isfinite(crit_all["cond"]):
-        raise NumericalError(f"{cfg.source}: the best trajectory found leaves base parameters unidentifiable (rank-deficient regressor); widen the limits or add harmonics")
+    if not crit_all["cond"] < _COND_UNUSABLE:
+        raise NumericalError(f"{cfg.source}: the best trajectory found leaves base parameters unidentifiable (condition number {crit_all['cond']:.3g}); the limits leave too little room: widen them or add harmonics")
     units = ["m" if jt == PRISMATIC else "rad" for jt in robot.joint_type]
     return ExcitationResult(robot.name, list(robot.joint_names), traj, cfg, crit_all, crit_new, crit_prior, margins, records, list(prob.bp.names), elapsed, budget_hit, units)
 
@@ -1256,9 +1278,23 @@ def summary_dict(result: ExcitationResult) -> dict:
         "duration_s": cfg.period * cfg.periods,
         "joints": joints,
         "keepout": {name: {"margin_m": _num(v[0]), "closest_point": v[1], "time_s": v[2]} for name, v in m.keepout.items()},
+        "notes": _notes(result),
         "checked_on": f"{cfg.design_samples * cfg.check_factor} samples a period and every controller sample, with cushions for excursions between samples",
         "optimizer": {"seed": cfg.seed, "starts": result.starts, "elapsed_s": result.elapsed, "time_budget_s": cfg.budget, "budget_hit": result.budget_hit},
     }
+
+
+def _notes(result: ExcitationResult) -> list[str]:
+    """Warnings a user should read before running the trajectory."""
+    notes = []
+    if result.criteria["cond"] > 100:
+        notes.append(f"condition number {result.criteria['cond']:.3g} is high (values below about 100 are usual for a good excitation, common practice): expect poorly identified parameters; widen the limits, lengthen the period or add harmonics")
+    if not np.all(np.isfinite(result.config.torque)):
+        free = [j for j, v in zip(result.joint_names, result.config.torque) if not np.isfinite(v)]
+        notes.append(f"no torque limit for joint(s) {', '.join(free)}: torques were not constrained there")
+    if result.budget_hit:
+        notes.append("the time budget stopped the optimizer: a rerun with the same seed may differ; raise the budget for a reproducible result")
+    return notes
 
 
 def _range_used(traj: FourierTrajectory, j: int) -> tuple[float, float]:
@@ -1304,6 +1340,8 @@ def summary_text(result: ExcitationResult) -> str:
     if d["keepout"]:
         lines += ["", "Keep-out regions (smallest distance beyond each region's margin):"]
         lines.append(format_table(["region", "margin (m)", "closest point", "at t (s)"], [[k, f"{v['margin_m']:.4f}", v["closest_point"], f"{v['time_s']:.3f}"] for k, v in d["keepout"].items()]))
+    for note in d["notes"]:
+        lines += ["", f"Note: {note}"]
     o = d["optimizer"]
     lines += ["", f"Optimizer: seed {o['seed']}, {len(o['starts'])} starts in {o['elapsed_s']:.1f} s" + (" (time budget reached: rerun with the same budget may differ)" if o["budget_hit"] else "")]
     for s in o["starts"]:
