@@ -21,8 +21,9 @@ from .regressor import iter_regressor, predict, regressor, stream_regressor
 from .base import BaseParameters, base_parameters
 from .paramfile import ParameterSet, load_parameters, parameter_set_from_vector, save_parameters
 from .logs import Dataset, LogOptions, Segment, apply_delay, estimate_dataset_delay, load_dataset, load_profile, preliminary_delay, read_logs
-from .estimate import Bounds, FitResult, fit
-from .payload import PayloadResult, identify_payload
+from .estimate import Bounds, FitResult, fit, fit_compressed
+from .compress import Compressor
+from .payload import PayloadResult, identify_payload, load_payload, save_payload
 from .excitation import ExcitationConfig, ExcitationResult, FourierTrajectory, design_excitation, load_excitation_config, load_trajectory, write_excitation
 from .simulate import SimulationResult, SimulationSettings, read_trajectory, simulate, write_log
 from .validate import Validation, validate, validate_dataset

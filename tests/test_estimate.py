@@ -266,3 +266,14 @@ def test_dataset_slow_samples_are_dropped_for_coulomb(ur5_case):
     res = fit_compressed(comp, "ols")
     beta_true = base_parameters(robot, terms).project(truth)
     assert scaled_error(res.beta, beta_true).max() < 1e-8
+
+
+def test_progress_reports_every_sample_across_logs(ur5_case):
+    robot, terms, _, (q, dq, ddq, tau) = ur5_case
+    seen = []
+    half = q.shape[0] // 2
+    logs = [(q[:half], dq[:half], ddq[:half], tau[:half]), (q[half:], dq[half:], ddq[half:], tau[half:])]
+    res = ident.fit(robot, logs, "ols", terms, progress=lambda done, total: seen.append((done, total)))
+    assert seen[-1] == (q.shape[0], q.shape[0])
+    assert all(b[0] >= a[0] for a, b in zip(seen, seen[1:]))
+    assert res.samples == q.shape[0] and res.sources == ["arrays[0]", "arrays[1]"]
