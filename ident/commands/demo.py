@@ -8,12 +8,10 @@ import warnings
 from importlib import resources
 from pathlib import Path
 
-import numpy as np
-
 from ..errors import IdentError
 from ..estimate import fit
 from ..export import export_urdf
-from ..logs import Dataset, Segment, load_dataset
+from ..logs import load_dataset
 from ..model import load_robot
 from ..paramfile import load_parameters, save_parameters
 from ..progress import Progress
@@ -51,22 +49,6 @@ def demo_data_dir() -> Path:
     raise IdentError(f"demo data not found in {packaged} or {repo}: reinstall ident or run scripts/make_demo_data.py")
 
 
-def moving_samples(data: Dataset) -> Dataset:
-    """The samples of `data` where no joint is flagged slow (|q'| below the slow-velocity threshold).
-
-    The Coulomb term sign(q') is undefined near q' = 0 and a stuck joint's friction can be anything
-    up to its Coulomb level, so those samples would bias the friction estimates.
-    """
-    segs = []
-    for s in data.segments:
-        keep = ~s.slow.any(axis=1) if s.slow is not None else np.ones(s.n_samples, dtype=bool)
-        if keep.any():
-            segs.append(Segment(s.source, s.t[keep], s.q[keep], s.dq[keep], s.ddq[keep], s.tau[keep], s.slow[keep] if s.slow is not None else None))
-    if not segs:
-        raise IdentError("no moving samples left: every sample has a joint below the slow-velocity threshold")
-    return Dataset(list(data.joint_names), segs, list(data.warnings), data.noise_var, dict(data.info))
-
-
 def add_parser(sub) -> None:
     p = sub.add_parser(
         "demo",
@@ -100,12 +82,13 @@ def run(args) -> int:
     say(f"demo arm: {robot.describe()} (data from {src})")
     fit_data = load_dataset([src / FIT_LOG], robot=robot, options=LOG_OPTIONS)
     held = load_dataset([src / HELDOUT_LOG], robot=robot, options=LOG_OPTIONS)
-    moving = moving_samples(fit_data)
-    say(f"1/4 fit: consistent method, terms {', '.join(TERMS)}, {moving.n_samples} moving samples of {FIT_LOG}")
-    with warnings.catch_warnings(), Progress(moving.n_samples, "fit", enabled=talk) as bar:
+    # the fit leaves out each joint's equation where that joint is slower than the slow-velocity
+    # threshold (sign(q') of the Coulomb term undefined); the check does the same
+    say(f"1/4 fit: consistent method, terms {', '.join(TERMS)}, {fit_data.n_samples} samples of {FIT_LOG}")
+    with warnings.catch_warnings(), Progress(fit_data.n_samples, "fit", enabled=talk) as bar:
         warnings.simplefilter("ignore")  # the fit records its warnings in the result; they go to the report
-        result = fit(robot, moving, method="consistent", terms=TERMS, progress=lambda done, total: bar.update(done, "compressing"))
-    ps = result.to_parameter_set(data={"logs": [FIT_LOG], "conditioning": dict(LOG_OPTIONS), "samples": "moving samples only"})
+        result = fit(robot, fit_data, method="consistent", terms=TERMS, progress=lambda done, total: bar.update(done, "compressing"))
+    ps = result.to_parameter_set(data={"logs": [FIT_LOG], "conditioning": dict(LOG_OPTIONS)})
     params_path = out / "sprout6_identified.yaml"
     save_parameters(params_path, ps)
     say(f"2/4 check on the held-out log {HELDOUT_LOG}")
@@ -116,7 +99,7 @@ def run(args) -> int:
     export_urdf(src / ROBOT_FILE, robot, ps, urdf_path)
     report_path = out / "sprout6_report.html"
     say("4/4 report")
-    write_report(report_path, robot, ps, validation=val, validation_data=held, fit_data=moving, reference=truth,
+    write_report(report_path, robot, ps, validation=val, validation_data=held, fit_data=fit_data, reference=truth,
                  title="ident demo: sprout6 seedling-tray arm", progress=talk)
     noise = truth.data.get("torque_noise_std") if isinstance(truth.data, dict) else None
     summary = {
