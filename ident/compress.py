@@ -262,7 +262,7 @@ class Compressor:
 
 
 def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, progress=None, chunk: int = CHUNK,
-             drop_slow: bool | None = None) -> Compressor:
+             drop_slow: bool | None = None, slow_velocity: float | None = None) -> Compressor:
     """Compress one or several logs into a :class:`Compressor`.
 
     Parameters
@@ -276,7 +276,11 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
     drop_slow : leave out joint j's equation at samples a data set flags as slow for joint j
         (``Segment.slow``: |q'| below its threshold, where sign(q') and so the Coulomb column are
         unreliable). Default: when the Coulomb term ``fc`` is among `terms`.
+    slow_velocity : for array input (which carries no such flags): |q'| threshold (rad/s or m/s)
+        below which a joint's equation counts as slow. Data sets keep their own flags.
     """
+    if slow_velocity is not None and not (np.isfinite(slow_velocity) and slow_velocity >= 0):
+        raise IdentError(f"slow_velocity: must be a non-negative number, got {slow_velocity}")
     comp = Compressor(robot, terms, base, chunk)
     if drop_slow is None:
         drop_slow = "fc" in comp.terms
@@ -285,6 +289,8 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
     done = 0
     for source, q, dq, ddq, tau, slow in segs:
         cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
+        if slow is None and slow_velocity:
+            slow = np.abs(np.asarray(dq, dtype=float)) < slow_velocity
         keep = ~np.asarray(slow, dtype=bool) if (drop_slow and slow is not None) else None
         comp.add(q, dq, ddq, tau, source=source, progress=cb, keep=keep)
         done += q.shape[0]

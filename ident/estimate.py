@@ -366,7 +366,8 @@ def _weights(comp: Compressor, sigma: np.ndarray) -> np.ndarray:
 
 
 def fit(robot: Robot, data, method: str = "ols", terms=DEFAULT_TERMS, *, bounds: Bounds | None = None, prior=None,
-        regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None) -> FitResult:
+        regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None,
+        slow_velocity: float | None = None) -> FitResult:
     """Identify the base parameters (and a full realization) of `robot` from logged data.
 
     Parameters
@@ -384,13 +385,17 @@ def fit(robot: Robot, data, method: str = "ols", terms=DEFAULT_TERMS, *, bounds:
     solver : cvxpy solver name for the consistent fit.
     progress : optional callable ``progress(samples_done, samples_total)``.
     base : base-parameter set (default: computed for robot and terms).
+    slow_velocity : with the Coulomb term, joint equations at samples where that joint's |q'| is
+        below this (rad/s or m/s) are left out, because sign(q') is unreliable there. Data sets
+        carry their own flags (``Segment.slow``, set when the logs are loaded); for arrays, give
+        a threshold here (default: keep every sample).
 
     Returns
     -------
     FitResult
     """
     _check_method(method)
-    comp = compress(robot, data, terms, base=base, progress=progress)
+    comp = compress(robot, data, terms, base=base, progress=progress, slow_velocity=slow_velocity)
     return fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver)
 
 

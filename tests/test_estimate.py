@@ -277,3 +277,13 @@ def test_progress_reports_every_sample_across_logs(ur5_case):
     assert seen[-1] == (q.shape[0], q.shape[0])
     assert all(b[0] >= a[0] for a, b in zip(seen, seen[1:]))
     assert res.samples == q.shape[0] and res.sources == ["arrays[0]", "arrays[1]"]
+
+
+def test_slow_velocity_threshold_for_arrays(ur5_case):
+    robot, terms, truth, (q, dq, ddq, tau) = ur5_case
+    comp = compress(robot, (q, dq, ddq, tau), terms, slow_velocity=0.05)
+    assert np.array_equal(comp.rows, (np.abs(dq) >= 0.05).sum(axis=0))
+    res = ident.fit(robot, (q, dq, ddq, tau), "wls", terms, slow_velocity=0.05)
+    assert scaled_error(res.beta, base_parameters(robot, terms).project(truth)).max() < 1e-8
+    with pytest.raises(IdentError, match="slow_velocity"):
+        compress(robot, (q, dq, ddq, tau), terms, slow_velocity=-1.0)
