@@ -1160,7 +1160,7 @@ def _design(robot: Robot, cfg: ExcitationConfig, logs, progress: bool, max_evalu
                     f, g = prob.objective(zz)
                     if f < _state["f"]:
                         _state["f"], _state["z"] = f, zz.copy()
-                    bar.update(k + min(prob.evals / (len(_PENALTY_STAGES) * cfg.max_iterations), 0.99), _note(crit_name, best))
+                    bar.update(k + min(prob.evals / (len(_PENALTY_STAGES) * cfg.max_iterations), 0.99), _note(crit_name, best, k, cfg.starts))
                     return f, g
 
                 try:
@@ -1178,7 +1178,7 @@ def _design(robot: Robot, cfg: ExcitationConfig, logs, progress: bool, max_evalu
             value = crit["cond"] if crit_name == "cond" else -crit["logdet"]
             if s > 0 and np.isfinite(value) and (best is None or value < best[0]):
                 best = (value, X, crit)
-            bar.update(k + 1, _note(crit_name, best))
+            bar.update(k + 1, _note(crit_name, best, k, cfg.starts))
     elapsed = time.monotonic() - start_clock
     if best is None:
         raise NumericalError(f"{cfg.source}: no start produced a usable trajectory: the limits and keep-out regions leave too little room around home for an informative motion")
@@ -1224,10 +1224,11 @@ def design_criteria(robot: Robot, config: ExcitationConfig, traj: FourierTraject
     return prob.criterion(traj.coefficients)
 
 
-def _note(kind: str, best) -> str:
+def _note(kind: str, best, start: int, starts: int) -> str:
+    head = f"start {start + 1}/{starts}"
     if best is None:
-        return ""
-    return f"best cond {best[2]['cond']:.4g}" if kind == "cond" else f"best logdet {best[2]['logdet']:.5g}"
+        return head
+    return head + (f", best cond {best[2]['cond']:.4g}" if kind == "cond" else f", best logdet {best[2]['logdet']:.5g}")
 
 
 # --------------------------------------------------------------------------------------------

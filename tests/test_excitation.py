@@ -337,3 +337,14 @@ def test_cli_reports_infeasible_request_in_one_line_without_output(tmp_path, cap
     assert status == 2
     assert len(err) == 1 and "shelf" in err[0]
     assert not out.exists()
+
+
+def test_d_optimal_design_raises_the_log_determinant():
+    robot = ident.load_robot(erd_path(UR5))
+    cfg = _config(_pin_model(UR5), UR5_HOME, UR5_WATCH, criterion="logdet")
+    cfg["optimizer"].update(starts=1, max_iterations=15)
+    res = ex.design_excitation(robot, cfg)
+    rec = res.starts[0]
+    assert rec["final"] > rec["initial"] + 1.0  # log det grows (D-optimality maximizes it)
+    assert res.config.criterion == "logdet" and np.isfinite(res.criteria["cond"])
+    assert "optimized: logdet" in ex.summary_text(res)

@@ -19,6 +19,9 @@ Writes to DIR: trajectory.csv (time, <joint>.q, .dq, .ddq at the controller rate
 coefficients.yaml (regenerates the CSV exactly), trajectory.png (joints against their limits),
 summary.txt and summary.json (criteria, margins to every limit and keep-out region, peaks).
 
+With --augment, the log options below (--period, --harmonics, --cutoff, ...) describe the
+earlier logs; the new trajectory's period and harmonics come from the config.
+
 examples:
   ident excite ur5_robot.urdf --config excite.yaml --out excite_run1
   ident excite ur5_robot.urdf --config excite.yaml --out run2 --augment run1_log.csv --period 10 --harmonics 5
