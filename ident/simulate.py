@@ -11,9 +11,11 @@ with ``D = dF/dq'``. That keeps the step stable although the Coulomb law is very
 ``q' = 0`` (it is smoothed there as ``fc tanh(q'/eps)`` with a tiny ``eps``, so the plant and the
 identified model's ``sign`` differ only while ``|q'| < a few eps``).
 
-The controller runs at the trajectory's sample rate with a zero-order hold: feedforward from the
-*description's* model (the prior, as a real controller would only know the CAD values) plus a PD
-term on the quantized encoder position and a filtered finite-difference velocity. The logged
+The controller runs at the trajectory's sample rate with a zero-order hold: rigid-body feedforward
+from the *description's* model (the prior: a real controller knows only the CAD values; no friction
+or rotor-inertia compensation) plus a PD term on the quantized encoder position and a filtered
+finite-difference velocity, with gains scaled by the description's joint inertia at the start plus
+the drive's rotor inertia (a datasheet value, taken equal to the plant's armature). The logged
 torque is the commanded motor torque plus Gaussian noise (a current measurement); logged positions
 are the quantized encoder readings. Everything is deterministic for a seed.
 """
