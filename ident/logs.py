@@ -1286,6 +1286,13 @@ def preliminary_delay(dataset: Dataset, robot, terms=("fv", "fc"), max_delay: fl
     (n,) delay, s (positive: the torque channel lags the positions); remove it with
     :func:`apply_delay` or the ``delay`` option of :func:`load_dataset`.
     """
+    from .compress import single_thread_blas
+
+    with single_thread_blas():  # narrow products: BLAS threads only add synchronisation
+        return _preliminary_delay(dataset, robot, terms, max_delay, max_rows, sweeps)
+
+
+def _preliminary_delay(dataset, robot, terms, max_delay, max_rows, sweeps):
     from .base import base_parameters
     from .model import parse_terms
     from .regressor import regressor
@@ -1317,11 +1324,16 @@ def preliminary_delay(dataset: Dataset, robot, terms=("fv", "fc"), max_delay: fl
     A = Yb.reshape(R_ * n, b)
     scale = np.linalg.norm(A, axis=0)
     scale[scale == 0] = 1.0
-    Q, Rf = np.linalg.qr(A / scale)
-    dr = np.abs(np.diag(Rf))
-    if dr.min() < 1e-9 * dr.max():
+    A = A / scale
+    # orthonormal basis of the regressor's range, Q = A L^-T from the Cholesky factor of A^T A:
+    # squaring the condition number is harmless for a preliminary fit on scaled columns, and it
+    # is much cheaper than a QR of the tall matrix
+    G = A.T @ A
+    ev = np.linalg.eigvalsh(G)
+    if ev[0] <= 1e-12 * ev[-1]:
         raise NumericalError("preliminary delay: the data do not excite every base parameter (rank-deficient regressor); use richer motion or fewer terms")
-    Q = Q.reshape(R_, n, b)
+    Lc = np.linalg.cholesky(G)
+    Q = np.linalg.solve(Lc, A.T).T.reshape(R_, n, b)
     tau = dataset.tau
     lags = np.arange(-K, K + 1)
     d = np.zeros(n)  # samples
