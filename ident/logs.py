@@ -18,6 +18,13 @@ offsets, time windows and conditioning settings.
 Nothing is repaired silently: malformed input raises :class:`ident.errors.DataError` naming the
 file, column and row; recoverable oddities (gaps, irregular sampling, clipped torques, extra
 joints) are handled in a documented way and listed in ``Dataset.warnings``.
+
+Conditioning (:class:`LogOptions`, per segment): parallel zero-phase Butterworth low-pass on
+positions and torques, derivatives of the filtered positions, edge trim, clipped-torque removal,
+decimation, optional averaging over excitation periods (torque noise variance in
+``Dataset.noise_var``), and ``Segment.slow`` flags where sign(dq) is unreliable for the Coulomb
+term. Torque-channel delay: :func:`preliminary_delay` (from a preliminary fit),
+:func:`estimate_dataset_delay` (against any prediction), :func:`apply_delay`.
 """
 
 from __future__ import annotations
