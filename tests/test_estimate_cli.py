@@ -57,13 +57,16 @@ def test_fit_writes_a_parameter_file(demo, tmp_path, method, capsys):
 
 
 def test_fit_json_and_bounds(demo, tmp_path, capsys):
+    # Two logs (the demo's excitation and held-out runs) are compressed into one fit.
     out = tmp_path / "b.yaml"
-    args = ["fit", URDF, LOG, "--method", "consistent", "--mass", "flange=0.2:0.3", "--com", "flange=-0.02,-0.02,0:0.02,0.02,0.05",
+    held = str(DEMO / "sprout6_heldout.csv")
+    args = ["fit", URDF, LOG, held, "--method", "consistent", "--mass", "flange=0.2:0.3", "--com", "flange=-0.02,-0.02,0:0.02,0.02,0.05",
             "--out", str(out), "--json", *LOG_OPTS]
     assert main(args) == 0
     doc = json.loads(capsys.readouterr().out)
     assert doc["out"] == str(out) and doc["base_parameters"] and "condition_number" in doc["diagnostics"]
     ps = load_parameters(out)
+    assert ps.data["files"] == [LOG, held] and len(ps.data["sources"]) >= 2
     k = ps.body_names.index("flange")
     m = ps.inertial[k, 0]
     assert 0.2 - 1e-6 <= m <= 0.3 + 1e-6
