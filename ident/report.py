@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import html
 import io
+import json
 from datetime import datetime, timezone
 
 import numpy as np
@@ -217,7 +218,8 @@ def _render(robot, ps, validation, validation_data, fit_data, reference, title, 
                          f" (low-pass cutoff {_e(data.info.get('cutoff'))} Hz).</p>")
             parts.append(_table(["log", "samples read", "duration (s)", "rate (Hz)", "segments"], _data_rows(data), [False, True, True, True, True]))
     if ps.data:
-        parts.append(f"<p class=\"note\">Parameter file data record: {_e(ps.data)}</p>")
+        record = "; ".join(f"{k}: {json.dumps(v, default=str)}" for k, v in ps.data.items())
+        parts.append(f"<p class=\"note\">Data recorded in the parameter file: {_e(record)}</p>")
     bar.update(1, "data")
 
     # -- what the data can identify ------------------------------------------------------------
