@@ -988,6 +988,13 @@ def _resample(seg: Segment, step: float) -> Segment:
     return Segment(seg.source, tn, rs(seg.q), rs(seg.dq), rs(seg.ddq), rs(seg.tau))
 
 
+def _dilate(mask: np.ndarray, r: int) -> np.ndarray:
+    """(m,) bool: true within `r` samples of a true entry of `mask` (running sum, O(m) for any r)."""
+    c = np.concatenate([[0], np.cumsum(mask, dtype=np.int64)])
+    i = np.arange(mask.shape[0])
+    return (c[np.minimum(i + r + 1, mask.shape[0])] - c[np.maximum(i - r, 0)]) > 0
+
+
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     """[start, end) index runs where `mask` is true."""
     if not mask.any():
@@ -1081,7 +1088,7 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
         counts["trimmed"] += int(min(m, 2 * trim))
     if clipped.any():
         spread_n = max(trim, 1)
-        dil = np.convolve(clipped.astype(np.int32), np.ones(2 * spread_n + 1, dtype=np.int32), mode="same") > 0
+        dil = _dilate(clipped, spread_n)
         counts["clipped"] += int((dil & keep).sum())
         keep &= ~dil
     runs = [(a, b) for a, b in _runs(keep) if b - a >= 3]
@@ -1123,8 +1130,8 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
         out["dq"][:, k] = v[allsel]
         flag = np.abs(v) < opts.slow_velocity
         if margin:
-            rev = (np.diff(np.signbit(v).astype(np.int8)) != 0).astype(np.int32)
-            flag |= np.convolve(np.concatenate([rev, [0]]), np.ones(2 * margin + 1, dtype=np.int32), mode="same") > 0
+            rev = np.concatenate([np.diff(np.signbit(v).astype(np.int8)) != 0, [False]])
+            flag |= _dilate(rev, margin)
         slow[:, k] = flag[allsel]
         if need_ddq:
             a = cond.derivative(v, dt, opts.derivative, window, periodic)
