@@ -24,6 +24,7 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
         raise IdentError(f"{target}: output folder {parent} does not exist")
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part" + target.suffix, dir=parent)
     os.close(fd)
+    os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; outputs follow the user's umask like any file
     tmp_path = Path(tmp)
     try:
         yield tmp_path
@@ -31,6 +32,12 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     finally:
         if tmp_path.exists():
             tmp_path.unlink()
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_text(path: str | os.PathLike, text: str) -> None:
