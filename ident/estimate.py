@@ -244,6 +244,11 @@ class FitResult:
         ]
         if self.solver:
             lines.append("Consistent fit: " + ", ".join(f"{k} {v}" for k, v in self.solver.items() if k in ("stage", "status", "seconds")))
+            if self.solver.get("stage") == "trade-off":
+                lines.append("  (the unconstrained estimate has no physical realization: the estimates are those of the "
+                             "physical fit, the std those of the unconstrained WLS fit)")
+            else:
+                lines.append("  (the WLS estimate is physically realizable: kept exactly; the prior chose the realization)")
         lines.append(format_table(
             ["joint", "residual RMS", "noise std"],
             [[j, f"{a:.4g}", f"{s:.4g}"] for j, a, s in zip(r.joint_names, self.residual_rms, self.sigma)],
