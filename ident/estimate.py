@@ -28,13 +28,17 @@ All three work on the compressed problem of :mod:`ident.compress` (per-joint tri
      prior, d is about half the squared relative change of the pseudo-inertia, so gamma = 1 (the
      default) acts like a prior that trusts the description to about 100 %. A well-identified base
      parameter (standard deviation far below its size) does not feel it; directions the data
-     barely see are set by the prior. Joint
-     terms have no prior; a ridge a million times weaker still keeps a term the data never see
-     (a joint that does not move) at zero.
+     barely see are set by the prior. Joint terms have no prior; a ridge a million times weaker
+     still keeps a term the data never see (a joint that does not move) near zero.
 
   The fit returns the full per-body realization (mass, COM, inertia at COM) and its base
   parameters ``P pi``. Its reported covariance is the WLS covariance (the constraints only
   shrink the feasible set, so this is a conservative statement of the uncertainty).
+
+The prior is the robot description's inertial values (URDF ``<inertial>`` or the DH file's link
+priors), or a parameter file passed as ``prior``. OLS and WLS also return a full realization:
+the one closest to the prior in the quadratic approximation of the same divergence among all
+with the estimated base parameters (:func:`realization`); it may be physically impossible.
 
 The result object :class:`FitResult` prints a statsmodels-style table and turns into a
 :class:`ident.paramfile.ParameterSet`.
