@@ -422,6 +422,9 @@ def _parse_profile(data, where: str) -> LogProfile:
     bad = set(tm) - _TIME_KEYS
     if bad:
         raise DataError(f"{where}: time: unknown key '{sorted(bad)[0]}' (known: {', '.join(sorted(_TIME_KEYS))})")
+    for key in ("column", "unit", "source"):
+        if key in tm and not isinstance(tm[key], str):
+            raise DataError(f"{where}: time.{key} must be text, got {tm[key]!r}")
     if "rate" in tm:
         r = tm["rate"]
         if isinstance(r, bool) or not isinstance(r, (int, float)) or not r > 0:
@@ -437,7 +440,9 @@ def _parse_profile(data, where: str) -> LogProfile:
     if p.time_source not in ("header", "log"):
         raise DataError(f"{where}: time.source '{p.time_source}' must be header or log")
     if "topic" in data:
-        p.topic = str(data["topic"])
+        if not isinstance(data["topic"], str):
+            raise DataError(f"{where}: topic must be text such as /joint_states, got {data['topic']!r}")
+        p.topic = data["topic"]
     cols = data.get("columns", {})
     if not isinstance(cols, dict) or set(cols) - set(CHANNELS):
         raise DataError(f"{where}: 'columns' must map channels ({', '.join(CHANNELS)}) to patterns like '{{name}}.q'")
@@ -455,9 +460,9 @@ def _parse_profile(data, where: str) -> LogProfile:
         raise DataError(f"{where}: 'joints' must map model joint names to their log entries")
     for jname, entry in joints.items():
         p.joints[str(jname)] = _parse_joint(str(jname), entry, f"{where}: joints.{jname}")
-    cnd = dict(data.get("conditioning", {}) or {})
     if not isinstance(data.get("conditioning", {}) or {}, dict):
         raise DataError(f"{where}: 'conditioning' must be a mapping of settings")
+    cnd = dict(data.get("conditioning", {}) or {})
     if "windows" in data:
         cnd["windows"] = data["windows"]
     LogOptions.from_mapping(cnd, f"{where}: conditioning")  # validate now, name the profile
@@ -482,7 +487,10 @@ def _parse_joint(jname: str, entry, where: str):
     bad = set(entry) - _JOINT_KEYS
     if bad:
         raise DataError(f"{where}: unknown key '{sorted(bad)[0]}' (known: {', '.join(sorted(_JOINT_KEYS))})")
-    log_name = str(entry.get("name", jname))
+    log_name = entry.get("name", jname)
+    if not isinstance(log_name, (str, int)) or isinstance(log_name, bool):
+        raise DataError(f"{where}: name must be the joint's name in the log, got {log_name!r}")
+    log_name = str(log_name)
     sign = entry.get("sign", 1)
     if sign not in (1, -1):
         raise DataError(f"{where}: sign must be 1 or -1, got {sign!r}")
@@ -498,6 +506,8 @@ def _parse_joint(jname: str, entry, where: str):
         bad = set(c) - _CHANNEL_KEYS
         if bad:
             raise DataError(f"{where}.{ch}: unknown key '{sorted(bad)[0]}' (known: {', '.join(sorted(_CHANNEL_KEYS))})")
+        if c.get("column") is not None and not isinstance(c["column"], str):
+            raise DataError(f"{where}.{ch}: column must be a column name, got {c['column']!r}")
         spec = ChannelSpec(column=c.get("column"), explicit=bool(c.get("column")))
         if "unit" in c:
             spec.unit = _unit(ch, c["unit"], f"{where}.{ch}.unit")

@@ -513,3 +513,32 @@ def test_default_conditioning_keeps_friction_estimates_unbiased(tmp_path):
     np.testing.assert_allclose(est[None]["fc"], 0.3, rtol=0.12)
     np.testing.assert_allclose(est[None]["fv"], 0.5, rtol=0.15)
     assert np.all(np.abs(est[0.0]["fc"] - 0.3) > np.abs(est[None]["fc"] - 0.3))  # without it: biased
+
+
+_KEYS = ["log_profile", "format", "time", "topic", "columns", "units", "joints", "windows", "conditioning", "column",
+         "unit", "rate", "source", "name", "q", "dq", "tau", "sign", "offset", "gear_ratio", "torque_constant", "limit",
+         "cutoff", "period", "harmonics", "decimate", "delay", "average", "j1", "{name}.q", "deg", "A"]
+_LEAVES = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(allow_nan=True, allow_infinity=True),
+                    st.sampled_from(_KEYS + ["", "s", "ms", "rad", "N*m", "{name}_x", "csv", "bag"]))
+_TREES = st.recursive(_LEAVES, lambda inner: st.one_of(st.lists(inner, max_size=3),
+                                                       st.dictionaries(st.sampled_from(_KEYS), inner, max_size=4)), max_leaves=12)
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(profile=st.dictionaries(st.sampled_from(_KEYS[:9]), _TREES, max_size=5))
+def test_malformed_profiles_raise_only_project_errors(profile):
+    try:
+        prof = L.load_profile(profile)
+    except IdentError:
+        return
+    assert isinstance(prof, L.LogProfile)
+
+
+@pytest.mark.parametrize("profile", [
+    {"time": {"unit": ["s"]}}, {"time": {"column": ["a"]}}, {"topic": {}}, {"conditioning": [1]},
+    {"joints": {"j": {"name": ["x"]}}}, {"joints": {"j": {"q": {"column": 3}}}}, {"units": {"q": ["deg"]}},
+    {"columns": ["a"]}, {"windows": {"a": 1}}, {"joints": ["a"]}, {"log_profile": 2},
+])
+def test_profiles_of_the_wrong_shape_are_refused(profile):
+    with pytest.raises(DataError, match="profile"):
+        L.load_profile(profile)
