@@ -16,8 +16,6 @@ only spans those ``c_j`` columns (the QR cost falls with ``c_j^2``).
 
 from __future__ import annotations
 
-import contextlib
-import ctypes
 from dataclasses import dataclass
 
 import numpy as np
@@ -28,58 +26,10 @@ from .base import BaseParameters, base_parameters
 from .errors import DataError, IdentError, NumericalError
 from .model import Robot, parse_terms
 from .regressor import iter_regressor
+from .blas import single_thread_blas  # noqa: F401  (re-exported for the estimators)
 
 #: Samples per regressor chunk during compression (a 7-joint, 91-column chunk is ~42 MB).
 CHUNK = 8192
-
-
-_BLAS_SYMBOLS = ("openblas", "scipy_openblas", "scipy_openblas64_", "openblas64_")
-
-
-def _openblas_handles() -> list:
-    """(get, set) thread-count functions of every OpenBLAS loaded in this process (Linux)."""
-    try:
-        with open("/proc/self/maps") as fh:
-            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and line.split()[-1].startswith("/")}
-    except OSError:
-        return []
-    out = []
-    for path in sorted(paths):
-        try:
-            lib = ctypes.CDLL(path)
-        except OSError:
-            continue
-        for stem in _BLAS_SYMBOLS:
-            base, suffix = (stem[:-4], "64_") if stem.endswith("64_") else (stem, "")
-            get = getattr(lib, f"{base}_get_num_threads{suffix}", None)
-            put = getattr(lib, f"{base}_set_num_threads{suffix}", None)
-            if get is not None and put is not None:
-                out.append((get, put))
-                break
-    return out
-
-
-@contextlib.contextmanager
-def single_thread_blas():
-    """Run the block with OpenBLAS limited to one thread, then restore its thread count.
-
-    Why: the QR updates here are tall and only a few dozen columns wide; OpenBLAS's threads cost
-    more in synchronisation than they gain, ten times more on a busy machine. No-op where the
-    library or its controls are not found.
-    """
-    handles = _openblas_handles()
-    saved = []
-    for get, put in handles:
-        try:
-            saved.append((put, int(get())))
-            put(1)
-        except Exception:  # pragma: no cover - foreign library without the expected signature
-            pass
-    try:
-        yield
-    finally:
-        for put, k in saved:
-            put(k)
 
 
 def joint_columns(robot: Robot, bp: BaseParameters) -> list[np.ndarray]:

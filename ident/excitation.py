@@ -28,8 +28,6 @@ the criterion is that of the combined data.
 
 from __future__ import annotations
 
-import contextlib
-import ctypes
 import math
 import time
 from dataclasses import dataclass, field
@@ -41,6 +39,7 @@ import scipy.optimize
 import yaml
 
 from .base import base_parameters
+from .blas import single_thread_blas
 from .dynamics import frame_pose, inverse_dynamics
 from .errors import DataError, IdentError, NumericalError
 from .fileio import atomic_path, write_text
@@ -704,33 +703,6 @@ def _criterion_grad(A: np.ndarray, kind: str) -> tuple[float, np.ndarray]:
     return f, G
 
 
-@contextlib.contextmanager
-def serial_blas():
-    """Run the enclosed dense algebra on one OpenBLAS thread (restored afterwards).
-
-    The design loop works on small matrices (a few thousand rows, ~50 columns) many thousands of
-    times; on a machine with few, busy cores OpenBLAS's threading costs ~30x their run time. Does
-    nothing where OpenBLAS's per-thread setting is unavailable (other BLAS, other systems).
-    """
-    setters = []
-    try:
-        with open("/proc/self/maps", encoding="utf-8") as fh:
-            libs = sorted({ln.split()[-1] for ln in fh if "openblas" in ln and ".so" in ln.split()[-1]})
-        for lib in libs:
-            fn = getattr(ctypes.CDLL(lib), "openblas_set_num_threads_local", None)
-            if fn is not None:
-                fn.restype, fn.argtypes = ctypes.c_int, [ctypes.c_int]
-                setters.append(fn)
-    except OSError:
-        setters = []
-    previous = [fn(1) for fn in setters]
-    try:
-        yield
-    finally:
-        for fn, n in zip(setters, previous):
-            fn(n)
-
-
 # --------------------------------------------------------------------------------------------
 # The design problem
 # --------------------------------------------------------------------------------------------
@@ -1114,7 +1086,7 @@ def design_excitation(robot: Robot, config: ExcitationConfig | dict, logs=None, 
     """
     cfg = config if isinstance(config, ExcitationConfig) else ExcitationConfig.from_dict(robot, config)
     _check_home(robot, cfg)
-    with serial_blas():
+    with single_thread_blas():
         return _design(robot, cfg, logs, progress, max_evaluations)
 
 
@@ -1209,7 +1181,7 @@ def random_feasible(robot: Robot, config: ExcitationConfig | dict, count: int, s
     prob = _Problem(robot, cfg, None)
     rng = np.random.default_rng(seed)
     out = []
-    with serial_blas():
+    with single_thread_blas():
         for _ in range(count):
             z = prob.random_z(rng)
             s, _ = prob.repair(z, s_max=math.inf)

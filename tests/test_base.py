@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import warnings
 
 import numpy as np
 import pinocchio as pin
