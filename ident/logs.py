@@ -257,6 +257,25 @@ class LogOptions:
         return None
 
 
+def excitation_options(path) -> dict:
+    """``{"period": s, "harmonics": K}`` read from an excitation file of ``ident excite`` (its
+    coefficients YAML or its config), so the default cutoff follows the excitation's highest harmonic."""
+    import yaml
+
+    p = Path(path)
+    if not p.is_file():
+        raise DataError(f"{p}: excitation file not found")
+    try:
+        d = yaml.safe_load(p.read_text(encoding="utf-8"))
+    except (yaml.YAMLError, UnicodeDecodeError) as exc:
+        raise DataError(f"{p}: not a valid YAML excitation file ({_first_line(exc)})") from None
+    if not isinstance(d, dict) or "period" not in d or "harmonics" not in d:
+        raise DataError(f"{p}: an excitation file needs top-level 'period' (s) and 'harmonics'")
+    out = {"period": d["period"], "harmonics": d["harmonics"]}
+    LogOptions.from_mapping(out, str(p))  # same checks as the options themselves
+    return out
+
+
 def _check_option(key: str, val, where: str):
     def bad(what):
         raise DataError(f"{where}: '{key}' {what}, got {val!r}")

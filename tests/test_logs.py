@@ -542,3 +542,17 @@ def test_malformed_profiles_raise_only_project_errors(profile):
 def test_profiles_of_the_wrong_shape_are_refused(profile):
     with pytest.raises(DataError, match="profile"):
         L.load_profile(profile)
+
+
+def test_excitation_file_sets_period_and_default_cutoff(tmp_path, capsys):
+    demo = Path(__file__).resolve().parent.parent / "datasets_demo"
+    opts = L.excitation_options(demo / "examples" / "excite.yaml")
+    assert opts == {"period": 10.0, "harmonics": 5}
+    log = demo / "sprout6_excite.csv"
+    assert main(["logs", str(log), "--excitation", str(demo / "examples" / "excite.yaml"), "--no-average", "--json"]) == 0
+    s = json.loads(capsys.readouterr().out)
+    assert s["cutoff"] == pytest.approx(5 * 5 / 10.0)  # 5 x the 5th harmonic of 0.1 Hz
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("period: 10\n")
+    with pytest.raises(DataError, match="harmonics"):
+        L.excitation_options(bad)

@@ -34,6 +34,8 @@ def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--cutoff", type=float, metavar="HZ",
                    help=f"zero-phase low-pass cutoff for positions and torques (default {CUTOFF_RATIO:g}x the highest excited frequency; 0 = no filter)")
     g.add_argument("--max-frequency", type=float, metavar="HZ", help="highest frequency of the excitation (sets the default cutoff)")
+    g.add_argument("--excitation", metavar="YAML",
+                   help="excitation file from 'ident excite' (coefficients.yaml or its config): gives --period and --harmonics")
     g.add_argument("--period", type=float, metavar="S", help="excitation period: average over whole periods, estimate the noise variance")
     g.add_argument("--harmonics", type=int, metavar="K", help="harmonics of the excitation (highest frequency = K / period)")
     g.add_argument("--no-average", action="store_true", help="with --period: do not average over periods")
@@ -67,6 +69,10 @@ def options_from_args(args: argparse.Namespace) -> dict:
         "slow_velocity": args.slow_velocity,
         "reversal_margin": args.reversal_margin,
     }
+    opts = {k: v for k, v in opts.items() if v is not None}
+    if getattr(args, "excitation", None):
+        for key, val in L.excitation_options(args.excitation).items():
+            opts.setdefault(key, val)  # explicit --period/--harmonics win
     if args.no_average:
         opts["average"] = False
     if args.logged_velocity:
