@@ -47,9 +47,9 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
-import yaml
 
 from .errors import ModelError
+from .fileio import read_yaml
 from .model import Robot
 from .spatial import rpy_to_matrix, to_vector, transform_params
 from .tree import JointSpec, LinkSpec, build_robot
@@ -315,14 +315,5 @@ def load_dh(path, joints=None, locked=None) -> Robot:
     Robot with ``source_kind == "dh"``; ``robot.frames`` holds ``dh0`` ... ``dh<n>`` and the tool.
     """
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ModelError(f"{p}: cannot read ({exc})") from None
-    try:
-        data = yaml.safe_load(text)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        at = f" at line {mark.line + 1}" if mark is not None else ""
-        raise ModelError(f"{p}: malformed YAML{at} ({getattr(exc, 'problem', None) or exc})") from None
+    data = read_yaml(p, "DH description", ModelError)
     return parse_dh(data, where=str(p), joints=joints, locked=locked)

@@ -22,3 +22,9 @@ class DataError(IdentError):
 
 class NumericalError(IdentError):
     """A computation could not be carried out reliably (rank deficiency, solver failure)."""
+
+
+def first_line(exc: BaseException) -> str:
+    """The first line of an exception's message (its type name when empty), for one-line errors."""
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__

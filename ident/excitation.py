@@ -42,7 +42,7 @@ from .base import base_parameters
 from .blas import single_thread_blas
 from .dynamics import frame_pose, inverse_dynamics
 from .errors import DataError, IdentError, NumericalError
-from .fileio import atomic_path, write_text
+from .fileio import atomic_path, read_yaml, write_text
 from .model import PRISMATIC, Robot, parse_terms
 from .progress import Progress
 from .regressor import regressor_into
@@ -208,12 +208,7 @@ def save_trajectory(path, traj: FourierTrajectory, extra: dict | None = None) ->
 def load_trajectory(path, robot: Robot | None = None) -> FourierTrajectory:
     """Read a coefficients file; with `robot`, its joints must be the robot's, in order."""
     p = Path(path)
-    if not p.is_file():
-        raise IdentError(f"{p}: coefficients file not found")
-    try:
-        d = yaml.safe_load(p.read_text(encoding="utf-8"))
-    except yaml.YAMLError as exc:
-        raise IdentError(f"{p}: not valid YAML ({_first_line(exc)})") from None
+    d = read_yaml(p, "coefficients file")
     traj = FourierTrajectory.from_dict(d, str(p))
     if robot is not None and traj.joint_names != robot.joint_names:
         raise IdentError(f"{p}: joints {', '.join(traj.joint_names)} do not match the robot's {', '.join(robot.joint_names)}")
@@ -459,12 +454,7 @@ class ExcitationConfig:
 def load_excitation_config(path, robot: Robot) -> ExcitationConfig:
     """Read and validate an excitation config YAML for `robot`."""
     p = Path(path)
-    if not p.is_file():
-        raise IdentError(f"{p}: excitation config not found")
-    try:
-        d = yaml.safe_load(p.read_text(encoding="utf-8"))
-    except yaml.YAMLError as exc:
-        raise IdentError(f"{p}: not valid YAML ({_first_line(exc)})") from None
+    d = read_yaml(p, "excitation config")
     return ExcitationConfig.from_dict(robot, d, str(p))
 
 
@@ -1455,9 +1445,6 @@ def _ticks(period: float, rate: float, key: str) -> int:
         raise IdentError(f"{key}: the period {period:g} s is not a whole number of controller ticks at {rate:g} Hz")
     return int(round(ticks))
 
-
-def _first_line(exc) -> str:
-    return str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
 
 
 def _known_keys(d: dict, known: set, where: str) -> None:

@@ -50,3 +50,26 @@ def write_bytes(path: str | os.PathLike, data: bytes) -> None:
     """Write `data` to `path` atomically."""
     with atomic_path(path) as tmp:
         tmp.write_bytes(data)
+
+
+def read_yaml(path: str | os.PathLike, what: str, error: type[IdentError] = IdentError):
+    """Parse the YAML file `path` (a `what`, e.g. "parameter file") with one-line errors.
+
+    Raises `error` naming the file when it is missing, unreadable or malformed (with the line).
+    """
+    import yaml
+
+    p = Path(path)
+    if not p.is_file():
+        raise error(f"{p}: {what} not found")
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise error(f"{p}: cannot read the {what} ({exc})") from None
+    try:
+        return yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        at = f" at line {mark.line + 1}" if mark is not None else ""
+        problem = getattr(exc, "problem", None) or str(exc).strip().splitlines()[0]
+        raise error(f"{p}: malformed YAML{at} in the {what} ({problem})") from None

@@ -38,7 +38,7 @@ import numpy as np
 import yaml
 
 from .errors import DataError, IdentError
-from .fileio import write_text
+from .fileio import read_yaml, write_text
 from .model import JOINT_TERMS, Robot, parse_terms
 from .spatial import from_vector, matrix_to_sym, pseudo_inertia, sym_to_matrix, to_vector
 
@@ -265,20 +265,12 @@ def load_parameters(path, robot: Robot | None = None) -> ParameterSet:
     counts, non-numbers, NaN, links or joints that do not match).
     """
     p = Path(path)
-    if not p.is_file():
-        raise DataError(f"{p}: parameter file not found")
-    try:
-        doc = yaml.safe_load(p.read_text(encoding="utf-8"))
-    except (yaml.YAMLError, UnicodeDecodeError) as exc:
-        raise DataError(f"{p}: not valid YAML ({_first_line(exc)})") from None
+    doc = read_yaml(p, "parameter file", DataError)
     ps = parameter_set_from_dict(doc, where=str(p))
     if robot is not None:
         ps = ps.check_robot(robot, where=str(p))
     return ps
 
-
-def _first_line(exc) -> str:
-    return str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
 
 
 def parameter_set_from_dict(doc, where: str = "parameters") -> ParameterSet:

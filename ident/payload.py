@@ -26,7 +26,7 @@ import yaml
 
 from .compress import fold_rows, iter_segments, single_thread_blas
 from .errors import DataError, IdentError, NumericalError
-from .fileio import write_text
+from .fileio import read_yaml, write_text
 from .model import Robot
 from .paramfile import ParameterSet
 from .regressor import iter_regressor
@@ -289,12 +289,7 @@ def save_payload(path, result: PayloadResult) -> None:
 def load_payload(path) -> dict:
     """Read a payload file; returns {"body", "frame", "mass", "com", "inertia_com" (3, 3)}."""
     p = Path(path)
-    if not p.is_file():
-        raise DataError(f"{p}: payload file not found")
-    try:
-        doc = yaml.safe_load(p.read_text(encoding="utf-8"))
-    except yaml.YAMLError as exc:
-        raise DataError(f"{p}: not valid YAML ({str(exc).splitlines()[0]})") from None
+    doc = read_yaml(p, "payload file", DataError)
     if not isinstance(doc, dict) or doc.get("format") != FORMAT:
         raise DataError(f"{p}: not a payload file (expected 'format: {FORMAT}')")
     for key in ("body", "frame", "mass"):

@@ -30,7 +30,7 @@ from numba import njit
 
 from . import kernels
 from .dynamics import check_joint_params, inverse_dynamics, mass_matrix
-from .errors import DataError, IdentError
+from .errors import DataError, IdentError, first_line
 from .fileio import atomic_path
 from .model import PRISMATIC, Robot, kernel_arrays
 from .progress import Progress
@@ -116,7 +116,7 @@ def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndar
     try:
         df = pd.read_csv(p)
     except Exception as exc:  # pandas raises many types on malformed text
-        raise DataError(f"{p}: cannot read as CSV ({type(exc).__name__}: {_first_line(exc)})") from None
+        raise DataError(f"{p}: cannot read as CSV ({type(exc).__name__}: {first_line(exc)})") from None
     if "time" not in df.columns:
         raise DataError(f"{p}: column 'time' is missing")
     missing = [f"{j}.q" for j in robot.joint_names if f"{j}.q" not in df.columns]
@@ -147,9 +147,6 @@ def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndar
     ddq = np.column_stack([column(f"{j}.ddq") for j in robot.joint_names]) if has("ddq") else np.gradient(dq, t, axis=0, edge_order=2)
     return t, q, dq, ddq
 
-
-def _first_line(exc) -> str:
-    return (str(exc).splitlines() or [""])[0]
 
 
 @njit(cache=True, nogil=True)

@@ -128,7 +128,7 @@ def test_file_of_another_robot_is_refused(ur5, tmp_path):
 def test_not_yaml_and_missing(tmp_path, ur5):
     p = tmp_path / "x.yaml"
     p.write_text("links: [unclosed\n")
-    with pytest.raises(DataError, match="not valid YAML"):
+    with pytest.raises(DataError, match="malformed YAML"):
         load_parameters(p)
     with pytest.raises(DataError, match="not found"):
         load_parameters(tmp_path / "nope.yaml")
