@@ -40,7 +40,7 @@ import yaml
 
 from .base import base_parameters
 from .blas import single_thread_blas
-from .dynamics import frame_pose, inverse_dynamics
+from .dynamics import frame_pose, inverse_dynamics, joint_term_torque
 from .errors import DataError, IdentError, NumericalError
 from .fileio import atomic_path, read_yaml, write_text
 from .model import PRISMATIC, Robot, parse_terms
@@ -564,15 +564,8 @@ def prior_torque(robot: Robot, cfg: ExcitationConfig, q, dq, ddq, Y=None) -> np.
     if Y is None:
         return inverse_dynamics(robot, q, dq, ddq, joint_params=cfg.torque_model or None)
     tau = Y @ robot.prior.reshape(-1)
-    tm = cfg.torque_model
-    if "fv" in tm:
-        tau += tm["fv"] * dq
-    if "fc" in tm:
-        tau += tm["fc"] * np.sign(dq)
-    if "fo" in tm:
-        tau += tm["fo"]
-    if "ia" in tm:
-        tau += tm["ia"] * ddq
+    if cfg.torque_model:
+        tau += joint_term_torque(robot, dq, ddq, cfg.torque_model)
     return tau
 
 
