@@ -15,13 +15,13 @@ from .errors import IdentError
 # Order here is the order in `ident --help`.
 COMMANDS = [
     "model",
-    "logs",
+    "excite",
     "simulate",
+    "logs",
     "fit",
     "payload",
     "check",
     "export",
-    "excite",
     "demo",
 ]
 

@@ -40,7 +40,8 @@ from typing import Any
 import numpy as np
 
 from . import conditioning as cond
-from .errors import DataError, IdentError, NumericalError
+from .errors import DataError, IdentError, NumericalError, first_line
+from .fileio import read_yaml
 
 CHANNELS = ("q", "dq", "ddq", "tau")
 PROFILE_VERSION = 1
@@ -260,15 +261,8 @@ class LogOptions:
 def excitation_options(path) -> dict:
     """``{"period": s, "harmonics": K}`` read from an excitation file of ``ident excite`` (its
     coefficients YAML or its config), so the default cutoff follows the excitation's highest harmonic."""
-    import yaml
-
     p = Path(path)
-    if not p.is_file():
-        raise DataError(f"{p}: excitation file not found")
-    try:
-        d = yaml.safe_load(p.read_text(encoding="utf-8"))
-    except (yaml.YAMLError, UnicodeDecodeError) as exc:
-        raise DataError(f"{p}: not a valid YAML excitation file ({_first_line(exc)})") from None
+    d = read_yaml(p, "excitation file", DataError)
     if not isinstance(d, dict) or "period" not in d or "harmonics" not in d:
         raise DataError(f"{p}: an excitation file needs top-level 'period' (s) and 'harmonics'")
     out = {"period": d["period"], "harmonics": d["harmonics"]}
@@ -406,14 +400,7 @@ def load_profile(profile) -> LogProfile:
     if isinstance(profile, dict):
         return _parse_profile(profile, "profile")
     path = Path(profile)
-    if not path.is_file():
-        raise DataError(f"{path}: profile file not found")
-    import yaml
-
-    try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except (yaml.YAMLError, UnicodeDecodeError) as exc:
-        raise DataError(f"{path}: not a valid YAML profile ({_first_line(exc)})") from None
+    data = read_yaml(path, "log profile", DataError)
     if data is None:
         data = {}
     return _parse_profile(data, str(path))
@@ -656,9 +643,9 @@ def _table_columns(path: Path, fmt: str) -> list[str]:
         with open(path, newline="", encoding="utf-8") as fh:
             header = next(csv.reader(fh), None)
     except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise DataError(f"{path}: cannot read the header ({_first_line(exc)})") from None
+        raise DataError(f"{path}: cannot read the header ({first_line(exc)})") from None
     except Exception as exc:  # pyarrow raises its own types for files that are not Parquet
-        raise DataError(f"{path}: not a readable {fmt} file ({_first_line(exc)})") from None
+        raise DataError(f"{path}: not a readable {fmt} file ({first_line(exc)})") from None
     if not header:
         raise DataError(f"{path}: empty file, no header row")
     return [h.strip() for h in header]
@@ -770,7 +757,7 @@ class _column_source:
                 self.n_rows = self._table.num_rows
         except Exception as exc:  # pyarrow's ArrowInvalid & co: name the file, keep one line
             detail = _diagnose_csv(path, columns) if fmt == "csv" else None
-            raise DataError(detail or f"{path}: cannot read as {fmt} ({_first_line(exc)})") from None
+            raise DataError(detail or f"{path}: cannot read as {fmt} ({first_line(exc)})") from None
 
     def __call__(self, column: str):
         try:
@@ -779,7 +766,7 @@ class _column_source:
             else:
                 col = self._pf.read(columns=[column]).column(0)
         except Exception as exc:
-            raise DataError(f"{self.path}: cannot read column '{column}' ({_first_line(exc)})") from None
+            raise DataError(f"{self.path}: cannot read column '{column}' ({first_line(exc)})") from None
         return col
 
 
@@ -804,7 +791,7 @@ def _diagnose_csv(path: Path, columns: list[str]) -> str | None:
                     except ValueError:
                         return f"{path}: column '{c}' has a non-numeric value '{cell[:20]}' at data row {row_no}"
     except (OSError, UnicodeDecodeError, csv.Error, StopIteration) as exc:
-        return f"{path}: cannot read as csv ({_first_line(exc)})"
+        return f"{path}: cannot read as csv ({first_line(exc)})"
     return None
 
 
@@ -868,7 +855,7 @@ def _read_bag(path: Path, robot, prof: LogProfile) -> RawLog:
     except IdentError:
         raise
     except Exception as exc:  # rosbags raises its own reader errors for broken bags
-        raise DataError(f"{where}: cannot read the bag ({_first_line(exc)})") from None
+        raise DataError(f"{where}: cannot read the bag ({first_line(exc)})") from None
     if not msgs:
         raise DataError(f"{where}: the JointState topic has no messages")
     seen = []
@@ -1473,6 +1460,3 @@ def _ranges(dataset: Dataset) -> dict:
     return out
 
 
-def _first_line(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()
-    return text[0] if text else type(exc).__name__
