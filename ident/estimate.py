@@ -374,7 +374,7 @@ def _weights(comp: Compressor, sigma: np.ndarray) -> np.ndarray:
 # public entry points
 
 
-def fit(robot: Robot, data, method: str = "ols", terms=DEFAULT_TERMS, *, bounds: Bounds | None = None, prior=None,
+def fit(robot: Robot, data, method: str = "consistent", terms=DEFAULT_TERMS, *, bounds: Bounds | None = None, prior=None,
         regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None,
         slow_velocity: float | None = None) -> FitResult:
     """Identify the base parameters (and a full realization) of `robot` from logged data.
@@ -385,7 +385,7 @@ def fit(robot: Robot, data, method: str = "ols", terms=DEFAULT_TERMS, *, bounds:
     data : a data set from :func:`ident.logs.load_dataset`, a tuple ``(q, dq, ddq, tau)`` of
         (N, n) arrays in SI units (rad, rad/s, rad/s^2, N m; m and N for prismatic joints), or a
         list of those (several logs are combined).
-    method : "ols", "wls" or "consistent" (see the module docstring).
+    method : "ols", "wls" or "consistent" (the default; see the module docstring).
     terms : joint terms (codes fv, fc, fo, ia).
     bounds : optional :class:`Bounds` (consistent fit only).
     prior : prior inertial parameters (n, 10) or a :class:`ParameterSet` (default: the robot
@@ -413,7 +413,7 @@ def _check_method(method: str) -> None:
         raise IdentError(f"method: '{method}' is not one of {', '.join(METHODS)}")
 
 
-def fit_compressed(comp: Compressor, method: str = "ols", *, bounds: Bounds | None = None, prior=None,
+def fit_compressed(comp: Compressor, method: str = "consistent", *, bounds: Bounds | None = None, prior=None,
                    regularization: float = REGULARIZATION, solver: str = "CLARABEL") -> FitResult:
     """:func:`fit` on data already compressed into a :class:`ident.compress.Compressor`."""
     # The matrices here are a few dozen wide: BLAS threads only cost synchronisation.

@@ -42,7 +42,7 @@ def add_parser(sub) -> None:
     add_robot_arguments(p)
     p.add_argument("logs", nargs="+", metavar="LOG", help="log files (CSV, Parquet, ROS bags)")
     p.add_argument("--out", required=True, metavar="PARAMS", help="parameter file to write (YAML)")
-    p.add_argument("--method", choices=METHODS, default="ols", help="estimator (default ols)")
+    p.add_argument("--method", choices=METHODS, default="consistent", help="estimator: ols, wls, or consistent (physically consistent links; the default)")
     add_terms_argument(p)
     add_log_arguments(p)
     g = p.add_argument_group("consistent fit")
