@@ -228,6 +228,26 @@ def test_same_seed_gives_the_same_trajectory():
     assert not np.array_equal(a.trajectory.coefficients, c.trajectory.coefficients)
 
 
+def test_time_budget_stops_the_optimizer_and_progress_shows_the_best_criterion(monkeypatch, capsys):
+    import sys
+
+    robot = ident.load_robot(erd_path(UR5))
+    cfg = _config(_pin_model(UR5), UR5_HOME, UR5_WATCH)
+    # a budget far too small for even one start: the optimizer must stop, say so, and still
+    # return a trajectory that keeps every constraint (checked with pinocchio, reference)
+    cfg["optimizer"].update(starts=3, budget=0.01, max_iterations=40)
+    monkeypatch.setattr(sys.stderr, "isatty", lambda: True)  # the bar draws on terminals only
+    res = ex.design_excitation(robot, cfg, progress=True)
+    bar = capsys.readouterr().err
+    assert res.budget_hit
+    assert res.starts[0]["stop"] == "time budget"
+    assert len(res.starts) < 3  # later starts skipped once the budget is spent
+    assert "excite [" in bar and f"best cond {res.starts[0]['final']:.4g}" in bar
+    assert "time budget stopped the optimizer" in ex.summary_text(res)
+    t = (np.arange(1000) + 0.5) * (cfg["period"] / 1000)
+    _assert_constraints_hold(_pin_model(UR5), cfg, res.trajectory, t)
+
+
 def test_augment_mode_completes_rank_deficient_earlier_logs():
     robot = ident.load_robot(erd_path(UR5))
     model = _pin_model(UR5)
@@ -255,7 +275,7 @@ def test_augment_mode_completes_rank_deficient_earlier_logs():
     assert "rank deficient" in ex.summary_text(res)
 
 
-def test_augment_mode_reads_earlier_logs_through_the_log_reader(tmp_path):
+def test_augment_mode_reads_earlier_logs_through_the_log_reader(tmp_path, capsys):
     robot = ident.load_robot(erd_path(UR5))
     cfg = _config(_pin_model(UR5), UR5_HOME, UR5_WATCH)
     cfg["optimizer"].update(starts=1, max_iterations=5)
@@ -270,6 +290,23 @@ def test_augment_mode_reads_earlier_logs_through_the_log_reader(tmp_path):
     res = ex.design_excitation(robot, cfg, logs=ds, max_evaluations=10)
     assert res.criteria_prior["cond"] == np.inf  # one joint moved: most base parameters unseen
     assert np.isfinite(res.criteria["cond"])
+    # the same through the CLI: the summary reports the earlier logs, the new run and both combined
+    import yaml
+
+    (tmp_path / "excite.yaml").write_text(yaml.safe_dump(cfg))
+    argv = ["excite", str(erd_path(UR5)), "--config", str(tmp_path / "excite.yaml"), "--quiet", "--cutoff", "4"]
+    assert cli_main(argv + ["--out", str(tmp_path / "next"), "--augment", str(path)]) == 0
+    summary = json.loads((tmp_path / "next" / "summary.json").read_text())
+    assert summary["criteria_earlier_logs"]["rank_deficient"] is True
+    assert np.isfinite(summary["criteria"]["cond"]) and summary["criteria"]["logdet"] > summary["criteria_new_trajectory"]["logdet"]
+    # a log of another robot (its columns name other joints): one line, exit 2, nothing written
+    other = tmp_path / "other_arm.csv"
+    other.write_text(path.read_text().replace("shoulder_pan_joint", "base_yaw"))
+    capsys.readouterr()
+    assert cli_main(argv + ["--out", str(tmp_path / "bad"), "--augment", str(other)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "other_arm.csv" in err[0] and "shoulder_pan_joint" in err[0]
+    assert not (tmp_path / "bad").exists()
 
 
 # -- bad requests -----------------------------------------------------------------------------
