@@ -33,6 +33,18 @@ RTOL = 1e-8
 ZERO_TOL = 1e-10
 #: Regrouping coefficients below this magnitude are dropped from the printed relations.
 COEF_TOL = 1e-9
+#: A printed coefficient is the shortest decimal within this relative distance of the computed one,
+#: so products of link lengths come out exact (0.0119137225, not 0.0119137).
+COEF_RTOL = 1e-9
+
+
+def _coefficient(mag: float) -> str:
+    """Shortest decimal text of a positive coefficient within ``COEF_RTOL`` (at most 12 digits)."""
+    for digits in range(1, 13):
+        text = f"{mag:.{digits}g}"
+        if abs(float(text) - mag) <= COEF_RTOL * mag:
+            return text
+    return f"{mag:.12g}"
 
 
 class SamplingWarning(UserWarning):
@@ -98,7 +110,9 @@ class BaseParameters:
     def relations(self, coef_tol: float = COEF_TOL) -> list[str]:
         """Readable regrouping, one string a base parameter: ``link2.zzR = link2.zz + 0.1225*link3.m + ...``.
 
-        Coefficients are printed with 6 significant digits; those below `coef_tol` are omitted.
+        Each coefficient is printed as the shortest decimal within a relative ``COEF_RTOL`` (1e-9) of
+        its computed value, so the usual parallel- and perpendicular-axis products of link lengths
+        read exactly; coefficients of magnitude below `coef_tol` are omitted.
         """
         out = []
         for i, name in enumerate(self.names):
@@ -108,7 +122,7 @@ class BaseParameters:
                 if abs(c) < coef_tol:
                     continue
                 mag = abs(c)
-                coef = "" if abs(mag - 1.0) < 1e-9 else f"{mag:.6g}*"
+                coef = "" if abs(mag - 1.0) < COEF_RTOL else f"{_coefficient(mag)}*"
                 expr += f" {'-' if c < 0 else '+'} {coef}{self.full_names[col]}"
             out.append(f"{name} = {expr}" if name != self.full_names[self.independent[i]] else name)
         return out

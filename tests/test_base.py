@@ -128,6 +128,21 @@ def test_relations_print_exact_parallel_axis_coefficients(planar):
     assert "l1.mxR = l1.mx + 0.4*l2.m" in rel
 
 
+def test_relations_print_exact_products_of_link_lengths(ur5):
+    # Link offsets from ur5_robot.urdf's joint origins: shoulder 0.13585 m, elbow -0.1197 m and
+    # wrist 2 0.093 m along y, upper arm 0.425 m and forearm 0.39225 m along z. The usual regrouping
+    # (Khalil and Dombre 2002): mass carried by a parallel axis adds length^2 * m to the
+    # inertia, and a perpendicular next axis moves the next link's yy into xx.
+    rel = {r.split(" = ")[0]: r for r in base_parameters(ur5).relations()}
+    y = 0.13585 - 0.1197 + 0.093
+    assert f" + {y**2:.10g}*wrist_2_link.m " in rel["shoulder_link.zzR"] and f"{y**2:.10g}" == "0.0119137225"
+    assert f" + {(0.13585 - 0.1197) ** 2:.10g}*forearm_link.m " in rel["shoulder_link.zzR"]
+    assert " + 0.180625*forearm_link.m " in rel["upper_arm_link.xxR"]  # 0.425^2
+    assert " + 0.1538600625*wrist_1_link.m " in rel["forearm_link.xxR"]  # 0.39225^2
+    assert " - 0.03647925*wrist_2_link.m " in rel["forearm_link.yzR"]  # 0.39225 * 0.093
+    assert rel["wrist_2_link.xxR"] == "wrist_2_link.xxR = wrist_2_link.xx - wrist_2_link.yy + wrist_3_link.zz"
+
+
 def test_structurally_zero_columns_listed(ur5):
     b = base_parameters(ur5)
     zero = {b.full_names[c] for c in b.zero}
