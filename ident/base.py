@@ -6,7 +6,8 @@ velocities and accelerations). Columns whose norm is negligible are *structurall
 remaining columns are scanned in their natural order (body by body from the base, then joint
 terms) with a QR factorization: a column whose |R_ii| falls below ``rtol`` times the largest
 (after scaling every column to unit norm) lies in the span of the columns before it and is
-*regrouped* into them. So the usual textbook choice comes out: distal quantities regroup into
+*regrouped* into them; QR with column pivoting confirms the rank independently of the order.
+So the usual textbook choice comes out: distal quantities regroup into
 proximal ones (``link2.zz`` absorbs ``link3.m``) and the first joint's armature of a vertical
 axis joins ``link1.zz``.
 
@@ -23,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg
 
+from .blas import single_thread_blas
 from .errors import IdentError, NumericalError
 from .model import Robot, parse_terms
 from .regressor import regressor
@@ -199,6 +201,46 @@ def _fingerprint(robot: Robot) -> str:
     return h.hexdigest()
 
 
+def _split(W: np.ndarray, rtol: float, name: str):
+    """Structurally zero, independent and regrouped columns of the stacked regressor W (rows, p),
+    and K (b, d) with W[:, regrouped] = W[:, independent] K."""
+    norms = np.linalg.norm(W, axis=0)
+    if not norms.max() > 0:
+        raise NumericalError(f"{name}: the regressor is zero at every sample")
+    zero = np.flatnonzero(norms <= ZERO_TOL * norms.max())
+    live = np.flatnonzero(norms > ZERO_TOL * norms.max())
+    Wn = W[:, live] / norms[live]
+    R = scipy.linalg.qr(Wn, mode="r", check_finite=False)[0]
+    diag = np.abs(np.diag(R))
+    keep = diag > rtol * diag.max()
+    # The natural-order scan picks the textbook base set; QR with column pivoting (Gautier 1990)
+    # gives the rank independently of the column order, and the two must agree.
+    Rp = scipy.linalg.qr(Wn, mode="r", pivoting=True, check_finite=False)[0]
+    dp = np.abs(np.diag(Rp))
+    rank = int(np.sum(dp > rtol * dp[0]))
+    if rank != int(keep.sum()):
+        raise NumericalError(f"{name}: rank {rank} from pivoted QR differs from the {int(keep.sum())} columns of the ordered scan at rank tolerance {rtol:g}; use more states or another tolerance")
+    independent = live[keep]
+    regrouped = live[~keep]
+    Wi = W[:, independent]
+    if regrouped.size:
+        # Solve in unit-norm column space (well scaled), then one step of iterative refinement.
+        Wi_n, Wd_n = Wn[:, keep], Wn[:, ~keep]
+        Kn, *_ = scipy.linalg.lstsq(Wi_n, Wd_n, check_finite=False)
+        Kn += scipy.linalg.lstsq(Wi_n, Wd_n - Wi_n @ Kn, check_finite=False)[0]
+        K = Kn / norms[independent][:, None] * norms[regrouped][None, :]  # (b, d)
+        resid = np.linalg.norm(W[:, regrouped] - Wi @ K, axis=0) / norms[regrouped]
+        if resid.max() > 1e-6:
+            raise NumericalError(f"{name}: base-parameter regrouping is not exact (relative residual {resid.max():.1e}); the rank tolerance {rtol:g} is too loose for these samples")
+        K[np.abs(K) < 1e-12 * max(1.0, np.abs(K).max())] = 0.0
+    else:
+        K = np.zeros((independent.size, 0))
+    sv = np.linalg.svd(Wi / norms[independent], compute_uv=False)
+    if sv[-1] < 1e-3 * rtol * sv[0]:
+        raise NumericalError(f"{name}: the base set found is ill-conditioned (smallest/largest singular value {sv[-1] / sv[0]:.1e}); use more states")
+    return zero, independent, regrouped, K
+
+
 _CACHE: dict = {}
 
 
@@ -214,8 +256,24 @@ def base_parameters(robot: Robot, terms=(), *, n_states: int = 400, seed: int = 
     rtol : relative rank tolerance on |R_ii| of the unit-norm-column stacked regressor.
     states : optional (q, q', q'') arrays (N, n) to use instead of random states; a
         :class:`SamplingWarning` is issued when they do not span the joint ranges.
+
+    Returns
+    -------
+    BaseParameters, cached per robot, terms, n_states, seed and rtol.
+
+    Raises
+    ------
+    IdentError : negative seed, or fewer than p / n random states (p regressor columns).
+    NumericalError : the ordered scan and pivoted QR disagree on the rank, the regrouping is not
+        exact, or the base set is ill-conditioned.
     """
     codes = parse_terms(terms)
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise IdentError(f"seed: expected a non-negative integer, got {seed!r}")
+    n_cols = robot.n_params(codes)
+    if states is None and (isinstance(n_states, bool) or not isinstance(n_states, (int, np.integer)) or n_states * robot.n < n_cols):
+        # fewer equations than columns cannot reveal the full rank: the count would come out too small
+        raise IdentError(f"n_states: {n_states!r} states give fewer equations than the {n_cols} regressor columns; use at least {-(-n_cols // robot.n)}")
     key = (_fingerprint(robot), codes, n_states, seed, rtol) if states is None else None
     if key is not None and key in _CACHE:
         return _CACHE[key]
@@ -229,33 +287,8 @@ def base_parameters(robot: Robot, terms=(), *, n_states: int = 400, seed: int = 
             warnings.warn(m, SamplingWarning, stacklevel=2)
     W = regressor(robot, q, dq, ddq, codes).reshape(-1, robot.n_params(codes))
     names = robot.param_names(codes)
-    norms = np.linalg.norm(W, axis=0)
-    if not norms.max() > 0:
-        raise NumericalError(f"{robot.name}: the regressor is zero at every sample")
-    zero = np.flatnonzero(norms <= ZERO_TOL * norms.max())
-    live = np.flatnonzero(norms > ZERO_TOL * norms.max())
-    Wn = W[:, live] / norms[live]
-    R = scipy.linalg.qr(Wn, mode="r", check_finite=False)[0]
-    diag = np.abs(np.diag(R))
-    keep = diag > rtol * diag.max()
-    independent = live[keep]
-    regrouped = live[~keep]
-    Wi = W[:, independent]
-    if regrouped.size:
-        # Solve in unit-norm column space (well scaled), then one step of iterative refinement.
-        Wi_n, Wd_n = Wn[:, keep], Wn[:, ~keep]
-        Kn, *_ = scipy.linalg.lstsq(Wi_n, Wd_n, check_finite=False)
-        Kn += scipy.linalg.lstsq(Wi_n, Wd_n - Wi_n @ Kn, check_finite=False)[0]
-        K = Kn / norms[independent][:, None] * norms[regrouped][None, :]  # (b, d)
-        resid = np.linalg.norm(W[:, regrouped] - Wi @ K, axis=0) / norms[regrouped]
-        if resid.max() > 1e-6:
-            raise NumericalError(f"{robot.name}: base-parameter regrouping is not exact (relative residual {resid.max():.1e}); the rank tolerance {rtol:g} is too loose for these samples")
-        K[np.abs(K) < 1e-12 * max(1.0, np.abs(K).max())] = 0.0
-    else:
-        K = np.zeros((independent.size, 0))
-    sv = np.linalg.svd(Wi / norms[independent], compute_uv=False)
-    if sv[-1] < 1e-3 * rtol * sv[0]:
-        raise NumericalError(f"{robot.name}: the base set found is ill-conditioned (smallest/largest singular value {sv[-1] / sv[0]:.1e}); use more states")
+    with single_thread_blas():  # small dense factorizations: BLAS threads only cost time here
+        zero, independent, regrouped, K = _split(W, rtol, robot.name)
     base_names = []
     for i, col in enumerate(independent):
         regroups = regrouped.size and np.any(np.abs(K[i]) >= COEF_TOL)

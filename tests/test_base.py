@@ -76,10 +76,56 @@ def test_counts_match_reference_library_rank(rel, locked, expected):
     # counts, from memory), confirmed by the rank of pin's regressor stacked over the same states.
     path = erd_path(rel)
     robot = ident.load_robot(path, locked=locked)
-    b = base_parameters(robot)
-    assert b.n_base == expected
+    assert base_parameters(robot).n_base == expected
     q, dq, ddq = random_states(robot, 150, np.random.default_rng(11))
+    assert base_parameters(robot, states=(q, dq, ddq)).n_base == expected
     assert _pin_rank(path, robot, q, dq, ddq, locked) == expected
+
+
+def test_planar_count_matches_reference_library_rank(planar, tmp_path):
+    # the reference library pin, on the same URDF and the same states, agrees on 6
+    path = tmp_path / "planar2r.urdf"
+    path.write_text(PLANAR_2R)
+    q, dq, ddq = random_states(planar, 100, np.random.default_rng(12))
+    assert base_parameters(planar, states=(q, dq, ddq)).n_base == 6
+    assert _pin_rank(path, planar, q, dq, ddq) == 6
+
+
+def test_random_states_cover_whole_range_within_limits(tmp_path):
+    # Gautier's method needs states over the whole range: limited joints stay inside their limits,
+    # a continuous joint covers a full turn, velocities and accelerations stay within the bounds.
+    path = tmp_path / "mixed.urdf"
+    path.write_text(PLANAR_2R.replace('type="revolute"><parent link="l1"', 'type="continuous"><parent link="l1"'))
+    robot = ident.load_robot(path)
+    q, dq, ddq = random_states(robot, 2000, np.random.default_rng(8))
+    assert q.shape == dq.shape == ddq.shape == (2000, 2)
+    assert q[:, 0].min() >= -3 and q[:, 0].max() <= 3 and np.ptp(q[:, 0]) > 0.95 * 6
+    assert np.ptp(q[:, 1]) > 0.95 * 2 * np.pi and np.abs(q[:, 1]).max() <= np.pi
+    assert np.abs(dq[:, 0]).max() <= 3 and np.abs(ddq[:, 0]).max() <= 6
+    again = random_states(robot, 2000, np.random.default_rng(8))
+    assert all(np.array_equal(a, b) for a, b in zip((q, dq, ddq), again))
+
+
+def test_same_seed_gives_the_same_result_without_the_cache(ur5):
+    from ident import base
+
+    a = base_parameters(ur5, "fv,ia", seed=6)
+    base._CACHE.clear()
+    b = base_parameters(ur5, "fv,ia", seed=6)
+    assert a is not b
+    assert np.array_equal(a.independent, b.independent) and np.array_equal(a.K, b.K)
+    assert a.relations() == b.relations()
+
+
+def test_bad_requests_are_refused(ur5, capsys):
+    with pytest.raises(ident.IdentError, match="seed: expected a non-negative integer, got -1"):
+        base_parameters(ur5, seed=-1)
+    # 5 states x 6 joints = 30 equations cannot reveal 36 base parameters: refuse, not under-count
+    with pytest.raises(ident.IdentError, match="n_states: 5 states give fewer equations than the 60 regressor columns; use at least 10"):
+        base_parameters(ur5, n_states=5)
+    assert main(["model", str(erd_path(UR5)), "--base", "--seed", "-1"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "seed" in err
 
 
 def test_base_regressor_reproduces_full_torque(ur5):
@@ -166,6 +212,8 @@ def test_cli_base_table_and_json(capsys):
     out = capsys.readouterr().out
     assert "base parameters: 58 of 84" in out
     assert "shoulder_link.zzR" in out
+    zero_line = next(line for line in out.splitlines() if line.startswith("never affect the torque"))
+    assert "shoulder_link.m," in zero_line and "shoulder_link.zz" not in zero_line
     assert main(["model", path, "--base", "--terms", "fv,fc", "--format", "json"]) == 0
     data = json.loads(capsys.readouterr().out)
     assert data["base"]["base_count"] == 36 + 12
