@@ -105,6 +105,11 @@ def build_robot(name, links, joints, *, selected=None, locked=None, gravity=None
             raise ModelError(f"{where}: no joint named '{nm}' to lock")
         if not np.isfinite(float(val)):
             raise ModelError(f"{where}: lock position of joint '{nm}' is not finite")
+        j = joint_by_name[nm]
+        # a lock beyond the limits is almost always a unit slip (degrees for radians, mm for m)
+        if j.type in ("revolute", "prismatic") and not (j.lower - 1e-9 <= float(val) <= j.upper + 1e-9):
+            unit = "m" if j.type == "prismatic" else "rad"
+            raise ModelError(f"{where}: lock position {float(val):g} {unit} of joint '{nm}' is outside its limits [{j.lower:g}, {j.upper:g}] {unit}")
     sel = set(selected)
 
     children = {l.name: [] for l in links}

@@ -270,6 +270,20 @@ BAD_URDF = {
 }
 
 
+def test_lock_outside_the_limits_is_refused(tmp_path, capsys):
+    # 30 for a joint limited to +-1 rad: almost surely degrees given for radians
+    text = urdf(GOOD_JOINT + '<link name="l2"/><joint name="j2" type="revolute"><parent link="l1"/><child link="l2"/>'
+                '<axis xyz="0 1 0"/><limit lower="-1" upper="1"/></joint>')
+    with pytest.raises(ident.ModelError, match=r"^bad.urdf: lock position 30 rad of joint 'j2' is outside its limits \[-1, 1\] rad$"):
+        parse_urdf(text, where="bad.urdf", locked={"j2": 30})
+    assert parse_urdf(text, where="ok.urdf", locked={"j2": 1.0}).locked == {"j2": 1.0}  # on the limit is fine
+    path = tmp_path / "arm.urdf"
+    path.write_text(text)
+    assert cli_main(["model", str(path), "--lock", "j2=30"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "lock position 30 rad of joint 'j2' is outside its limits" in err
+
+
 @pytest.mark.parametrize("case", list(BAD_URDF))
 def test_bad_urdf_is_refused_naming_the_element(case):
     text, pattern = BAD_URDF[case]
