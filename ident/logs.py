@@ -804,7 +804,8 @@ def _numeric(col, path: Path, name: str) -> np.ndarray:
         raise DataError(f"{path}: column '{name}' is not numeric (type {col.type})")
     if col.null_count:
         row = int(np.flatnonzero(pc.is_null(col).to_numpy(zero_copy_only=False))[0])
-        raise DataError(f"{path}: column '{name}' has an empty value at data row {row + 1}")
+        # pyarrow's CSV reader turns empty cells and the texts NaN/NA/null alike into nulls
+        raise DataError(f"{path}: column '{name}' has an empty or NaN value at data row {row + 1}")
     a = col.to_numpy().astype(float, copy=False)
     if not np.all(np.isfinite(a)):
         row = int(np.flatnonzero(~np.isfinite(a))[0])

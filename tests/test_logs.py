@@ -307,7 +307,7 @@ def _bad_cases(ur5):
     return {
         "decreasing time": (edit(set_cell("time", 10, 0.005)), None, r"decreasing \(non-monotonic\) timestamp at data row 11"),
         "duplicate time": (edit(set_cell("time", 10, t[9])), None, "duplicate timestamp at data row 11"),
-        "nan": (edit(set_cell(f"{j1}.q", 7, float("nan"))), None, rf"column '{j1}.q' has an (empty|non-finite) value .*data row 8"),
+        "nan": (edit(set_cell(f"{j1}.q", 7, float("nan"))), None, rf"column '{j1}.q' has an (empty or NaN|non-finite) value .*data row 8"),
         "inf": (edit(set_cell(f"{j0}.tau", 3, float("inf"))), None, rf"column '{j0}.tau' has a non-finite value \(inf\) at data row 4"),
         "text cell": (edit(set_cell(f"{j0}.q", 5, "abc")), None, rf"(column '{j0}.q'|{j0}\.q)"),
         "missing joint": (good.drop(columns=[f"{j1}.q"]), None, rf"no column '{j1}.q' for joint '{j1}'"),
