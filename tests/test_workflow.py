@@ -136,6 +136,14 @@ def test_bad_input_across_commands_one_line_exit_2_no_outputs(tmp_path, demo_run
         ("simulate", ["simulate", URDF, "--trajectory", tmp_path / "none.csv", "--truth", DEMO / "sprout6_truth.yaml", "--out", tmp_path / "sim.csv"]),
         ("simulate", ["simulate", URDF, "--trajectory", held, "--truth", ur5_params, "--out", tmp_path / "sim.csv"]),
         ("demo", ["demo", "--out", demo_target]),
+        ("fit", ["fit", URDF, tmp_path / "missing.csv", "--cutoff", "10", "--out", tmp_path / "f.yaml"]),
+        ("fit", ["fit", URDF, ur5_log, "--cutoff", "10", "--out", tmp_path / "f.yaml"]),  # log of another robot
+        ("fit", ["fit", URDF, empty, "--cutoff", "10", "--out", tmp_path / "f.yaml"]),  # empty log
+        ("fit", ["fit", URDF, held, "--cutoff", "10", "--prior", ur5_params, "--out", tmp_path / "f.yaml"]),  # prior of another robot
+        ("payload", ["payload", URDF, summary["parameters"], tmp_path / "missing.csv", "--cutoff", "10", "--out", tmp_path / "p.yaml"]),
+        ("payload", ["payload", URDF, summary["parameters"], ur5_log, "--cutoff", "10", "--out", tmp_path / "p.yaml"]),
+        ("payload", ["payload", URDF, ur5_params, held, "--cutoff", "10", "--out", tmp_path / "p.yaml"]),
+        ("payload", ["payload", URDF, summary["parameters"], empty, "--cutoff", "10", "--out", tmp_path / "p.yaml"]),
     ]
     before = sorted(p.name for p in tmp_path.iterdir())
     capsys.readouterr()
@@ -149,3 +157,42 @@ def test_bad_input_across_commands_one_line_exit_2_no_outputs(tmp_path, demo_run
         _assert_one_line_error(status, err, command)
         assert sorted(p.name for p in tmp_path.iterdir()) == before, f"{argv}: left files behind"
     assert demo_target.read_text() == "not a folder"
+
+
+def test_every_command_has_help_with_an_example(capsys):
+    # Issue 7: `--help` on every command with an example of its use.
+    from ident.cli import COMMANDS, main
+
+    for name in COMMANDS:
+        with pytest.raises(SystemExit) as exc:
+            main([name, "--help"])
+        assert exc.value.code == 0, name
+        text = capsys.readouterr().out
+        usage, _, rest = text.partition("\n\n")
+        assert usage.startswith(f"usage: ident {name}") and rest.strip(), f"{name}: no description"
+        _, found, examples = rest.partition("example")
+        assert found, f"ident {name} --help shows no example"
+        assert f"ident {name} " in examples, f"ident {name} --help: the example does not run the command"
+
+
+def test_quiet_and_json_outputs(tmp_path, demo_run, capsys):
+    # Issue 7: --quiet prints nothing on success, --json prints one JSON document a program can read.
+    from ident.cli import main
+
+    out, summary = demo_run
+    held = DEMO / "sprout6_heldout.csv"
+    cases = {
+        "check": ["check", URDF, summary["parameters"], held, "--cutoff", "10"],
+        "export": ["export", summary["parameters"], "--urdf", URDF, "--out", tmp_path / "{tag}.urdf"],
+        "payload": ["payload", URDF, summary["parameters"], held, "--cutoff", "10", "--out", tmp_path / "{tag}.yaml"],
+    }
+    for name, argv in cases.items():
+        for tag in ("quiet", "json"):
+            args = [str(a).replace("{tag}", tag) for a in argv] + [f"--{tag}"]
+            assert main(args) == 0, args
+            got = capsys.readouterr()
+            assert got.err == "", (args, got.err)
+            if tag == "quiet":
+                assert got.out == "", (args, got.out)
+            else:
+                assert isinstance(json.loads(got.out), dict), args
