@@ -3,6 +3,7 @@ refusal of malformed or unsupported descriptions with a message naming the eleme
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
 import numpy as np
@@ -362,3 +363,28 @@ def test_malformed_dh_yaml_names_file_and_line(tmp_path):
     path.write_text("- just\n- a list\n")
     with pytest.raises(ident.ModelError, match=r"top level: expected a mapping, got list"):
         load_dh(path)
+
+
+# --- ident model ---------------------------------------------------------------------------------
+def test_cli_model_table_of_a_branched_arm_with_a_prismatic_finger(capsys):
+    # baxter from example-robot-data: head and left arm are separate branches of the base, the
+    # gripper finger is prismatic; limits as written in its URDF (read back by pin in
+    # test_dynamics_reference.test_limits_match_pin).
+    from conftest import erd_path
+
+    path = str(erd_path("baxter_description/urdf/baxter.urdf"))
+    args = ["model", path, "--joints", "head_pan,left_s0,left_s1,l_gripper_l_finger_joint", "--lock", "l_gripper_r_finger_joint=-0.01"]
+    assert cli_main(args) == 0
+    lines = capsys.readouterr().out.splitlines()
+    rows = {line.split()[1]: line.split() for line in lines if line[:1].isdigit() and len(line.split()) == 11}
+    assert rows["left_s1"][2:] == ["revolute", "0", "0", "1", "left_upper_shoulder", "-2.147", "1.047", "1.5", "50"]
+    assert rows["l_gripper_l_finger_joint"][2:] == ["prismatic", "0", "1", "0", "left_lower_shoulder", "0", "0.02083", "5", "20"]
+    assert rows["left_s0"][6] == "base" and rows["head_pan"][6] == "base"  # two branches of the base
+    assert any("l_gripper_r_finger_joint=-0.01" in line for line in lines if line.startswith("locked joints"))
+    assert lines[-1] == "parameters: 40 inertial (10 per body) + 12 joint terms [fv (viscous friction), fc (Coulomb friction), ia (armature (reflected rotor inertia))] = 52"
+    assert cli_main(args + ["--format", "json", "--terms", "fo"]) == 0
+    info = json.loads(capsys.readouterr().out)
+    finger = info["joints"][3]
+    assert finger["type"] == "prismatic" and finger["units"] == "m, m/s, N" and finger["upper"] == pytest.approx(0.020833)
+    assert info["parameters"] == {"inertial": 40, "joint_terms": 4, "total": 44}
+    assert "l_gripper_r_finger" in info["bodies"][2]["merged_links"]

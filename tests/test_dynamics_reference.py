@@ -128,6 +128,21 @@ def test_structure_matches(pair):
         assert (r.joint_type[k] == 1) == m.joints[jid].shortname().startswith("JointModelP")
 
 
+def test_limits_match_pin(pair):
+    # pin reads the same <limit> elements (position limits by q index, velocity and effort by v index)
+    r, m = pair.robot, pair.model
+    for k, jid in enumerate(pair.joint_ids):
+        j = m.joints[jid]
+        # a velocity or effort of 0 in the file (romeo's hand) means "not given" to ident: no limit
+        for ours, ref in ((r.velocity_limit[k], m.velocityLimit[j.idx_v]), (r.effort_limit[k], m.effortLimit[j.idx_v])):
+            assert ours == (pytest.approx(ref, rel=1e-12) if ref > 0 else np.inf), r.joint_names[k]
+        if j.nq == 1:  # a continuous joint (nq 2 in pin) has no position limits
+            assert r.lower[k] == pytest.approx(m.lowerPositionLimit[j.idx_q], rel=1e-12), r.joint_names[k]
+            assert r.upper[k] == pytest.approx(m.upperPositionLimit[j.idx_q], rel=1e-12), r.joint_names[k]
+        else:
+            assert not np.isfinite(r.lower[k]) and not np.isfinite(r.upper[k])
+
+
 def test_body_inertia_after_merging_matches_pin(pair):
     # pin merges bodies on fixed (and locked) joints into the joint's body, in the joint frame,
     # which is our body frame: the 10-vectors must agree.
@@ -275,6 +290,17 @@ def test_streamed_and_threaded_regressor_equal_the_full_one():
             assert Yc.shape[0] <= chunk
             got[sl] = Yc
         np.testing.assert_array_equal(got, Y)
+    # the streaming form hands each chunk of one reused buffer to a consumer
+    seen, buffers = [], set()
+
+    def consumer(sl, Yc):
+        buffers.add(Yc.__array_interface__["data"][0])
+        seen.append((sl, Yc.sum(axis=0)))
+
+    ident.stream_regressor(r, q, dq, ddq, consumer, "all", chunk=200)
+    assert [sl.start for sl, _ in seen] == list(range(0, 1500, 200)) and len(buffers) == 1
+    for sl, total in seen:
+        np.testing.assert_allclose(total, Y[sl].sum(axis=0), rtol=0, atol=1e-9 * np.abs(Y).max())
     args = (q, dq, ddq, *kernel_arrays(r), r.ancestors, -r.gravity, _term_codes("all"))
     serial, threaded = np.full_like(Y, np.nan), np.full_like(Y, np.nan)
     kernels._regressor_serial(*args, serial)
