@@ -202,6 +202,31 @@ def test_forward_dynamics_matches_aba(pair):
         assert_close(acc[s], ref, f"ABA state {s}")
 
 
+def test_forward_dynamics_with_friction_and_armature(pair):
+    # q'' = (M + diag(ia))^-1 (tau - c - g - fv q' - fc sign(q') - fo), with M from pin.crba and
+    # c + g from pin.rnea at zero acceleration (reference library); armature also makes romeo's
+    # massless hand regular.
+    r = pair.robot
+    rng = np.random.default_rng(31)
+    q, dq, _ = states(r, seed=29)
+    q, dq = q[:50], dq[:50]
+    dq[::5, 0] = 0.0  # sign(0) = 0: no Coulomb torque at rest
+    tau = rng.normal(0.0, 5.0, q.shape)
+    jp = {"fv": rng.uniform(0.1, 1.0, r.n), "fc": rng.uniform(0.1, 2.0, r.n), "fo": rng.normal(0.0, 0.3, r.n), "ia": rng.uniform(0.01, 0.1, r.n)}
+    acc = ident.forward_dynamics(r, q, dq, tau, joint_params=jp)
+    vi = pair.vidx
+    for s in range(q.shape[0]):
+        qp = pair.q(q[s])
+        Mp = pin.crba(pair.model, pair.data, qp)
+        Mp = (np.triu(Mp) + np.triu(Mp, 1).T)[np.ix_(vi, vi)] + np.diag(jp["ia"])
+        bias = pin.rnea(pair.model, pair.data, qp, pair.v(dq[s]), np.zeros(pair.model.nv))[vi]
+        friction = jp["fv"] * dq[s] + jp["fc"] * np.sign(dq[s]) + jp["fo"]
+        ref = np.linalg.solve(Mp, tau[s] - bias - friction)
+        assert_close(acc[s], ref, f"forward dynamics with joint terms, state {s}")
+    # and inverse dynamics with the same joint terms gives the torque back
+    assert_close(ident.inverse_dynamics(r, q, dq, acc, joint_params=jp), tau, "inverse(forward(tau))")
+
+
 def test_jacobian_and_wrench_torque_match_pin(pair):
     r = pair.robot
     q, _, _ = states(r, seed=9)
