@@ -196,3 +196,19 @@ def test_quiet_and_json_outputs(tmp_path, demo_run, capsys):
                 assert got.out == "", (args, got.out)
             else:
                 assert isinstance(json.loads(got.out), dict), args
+
+
+def test_demo_report_is_valid_html_with_decodable_figures(demo_run):
+    # Issue 7: the report the CLI writes (not only the library call) is well-formed, self-contained
+    # HTML whose embedded PNGs decode (checked with the standard library's html.parser and
+    # matplotlib's PNG reader, see test_report.check_html).
+    from test_report import check_html
+
+    out, summary = demo_run
+    text = Path(summary["report"]).read_text(encoding="utf-8")
+    p = check_html(text)
+    assert len(p.images) == 2  # data coverage and the held-out torque plots
+    for title in ("The arm and the data", "Identified values", "Held-out check", "Before you use this model"):
+        assert title in text
+    robot = ident.load_robot(URDF)
+    assert all(j in text for j in robot.joint_names)
