@@ -211,7 +211,8 @@ def _split(W: np.ndarray, rtol: float, name: str):
     live = np.flatnonzero(norms > ZERO_TOL * norms.max())
     Wn = W[:, live] / norms[live]
     R = scipy.linalg.qr(Wn, mode="r", check_finite=False)[0]
-    diag = np.abs(np.diag(R))
+    diag = np.zeros(Wn.shape[1])
+    diag[: min(Wn.shape)] = np.abs(np.diag(R))  # fewer rows than columns: the rest are dependent
     keep = diag > rtol * diag.max()
     # The natural-order scan picks the textbook base set; QR with column pivoting (Gautier 1990)
     # gives the rank independently of the column order, and the two must agree.
@@ -255,7 +256,9 @@ def base_parameters(robot: Robot, terms=(), *, n_states: int = 400, seed: int = 
     seed : seed of the ``numpy.random.Generator`` that draws the states.
     rtol : relative rank tolerance on |R_ii| of the unit-norm-column stacked regressor.
     states : optional (q, q', q'') arrays (N, n) to use instead of random states; a
-        :class:`SamplingWarning` is issued when they do not span the joint ranges.
+        :class:`SamplingWarning` is issued when they do not span the joint ranges (a joint over
+        less than 10 % of its range, or with constant velocity or acceleration) or when N n is
+        below the number of columns p: the count may then come out too small.
 
     Returns
     -------
@@ -283,6 +286,8 @@ def base_parameters(robot: Robot, terms=(), *, n_states: int = 400, seed: int = 
     else:
         q, dq, ddq = robot.check_states(*states)
         msgs = _span_warnings(robot, q, dq, ddq)
+        if q.shape[0] * robot.n < n_cols:
+            msgs.append(f"{q.shape[0]} states give {q.shape[0] * robot.n} equations for {n_cols} regressor columns: the base set may be too small")
         for m in msgs:
             warnings.warn(m, SamplingWarning, stacklevel=2)
     W = regressor(robot, q, dq, ddq, codes).reshape(-1, robot.n_params(codes))

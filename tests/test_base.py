@@ -204,6 +204,10 @@ def test_narrow_sampling_is_detected(ur5):
     with pytest.warns(SamplingWarning, match="elbow_joint"):
         b = base_parameters(ur5, states=(q, dq, ddq))
     assert any("elbow_joint" in w for w in b.warnings)
+    # too few states: warned, and the rank trouble is reported rather than a short base set returned
+    with pytest.warns(SamplingWarning) as caught, pytest.raises(ident.NumericalError, match="from pivoted QR differs"):
+        base_parameters(ur5, states=(q[:5], dq[:5], ddq[:5]))
+    assert any("5 states give 30 equations for 60 regressor columns" in str(w.message) for w in caught)
 
 
 def test_cli_base_table_and_json(capsys):
