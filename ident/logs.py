@@ -789,7 +789,7 @@ def _diagnose_csv(path: Path, columns: list[str]) -> str | None:
                     try:
                         float(cell)
                     except ValueError:
-                        return f"{path}: column '{c}' has a non-numeric value '{cell[:20]}' at data row {row_no}"
+                        return f"{path}: column '{c}' has a non-numeric value {cell[:20]!r} at data row {row_no}"  # repr: a quoted cell may hold a line break
     except (OSError, UnicodeDecodeError, csv.Error, StopIteration) as exc:
         return f"{path}: cannot read as csv ({first_line(exc)})"
     return None
@@ -1241,7 +1241,9 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
             segments += _condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise)
         del raw, pieces
     if condition and not segments:
-        raise DataError("no samples left after conditioning (see the warnings: windows, gaps, clipping, segment lengths)")
+        # the CLI shows this one line only, so it names the files and carries the warnings that explain it
+        why = "; ".join(w.replace("\n", " ") for w in warnings[:3]) + (f" (and {len(warnings) - 3} more warnings)" if len(warnings) > 3 else "")
+        raise DataError(f"{', '.join(str(p) for p in paths)}: no samples left after conditioning ({why or 'check windows, gaps, clipping and segment lengths'})")
     noise_var = None
     info = dict(files=files, counts=counts, conditioned=condition,
                 options={k: (v.tolist() if isinstance(v, np.ndarray) else v) for k, v in dataclasses.asdict(opts).items()},
