@@ -249,7 +249,9 @@ def test_jacobian_and_wrench_torque_match_pin(pair):
 
 
 def test_regressor_times_prior_is_rnea_and_gives_crba(pair):
-    # Y pi = RNEA; with q' = 0, no gravity and q'' = e_i, column i of M equals Y(q, 0, e_i) pi.
+    # Y pi = RNEA; with q' = 0, no gravity and q'' = e_i, column i of M equals Y(q, 0, e_i) pi
+    # (the unit-acceleration construction of M, Walker and Orin 1982); ident's CRBA is itself
+    # checked against pin.crba above.
     r = pair.robot
     q, dq, ddq = states(r, seed=13)
     pi = r.prior.reshape(-1)
@@ -368,3 +370,23 @@ def test_forked_children_compute_the_regressor_after_threaded_use():
             assert pool.apply_async(_regressor_sum, ((pair.robot, q, dq, ddq),)).get(timeout=120) == total
     finally:
         kernels.set_threading(previous)
+
+
+def test_bad_states_and_parameters_are_refused_naming_the_argument():
+    r = ident.load_robot(erd_path(UR5))
+    q = np.zeros((3, 6))
+    bad = q.copy()
+    bad[1, 2] = np.nan
+    with pytest.raises(ident.IdentError, match=r"^q: non-finite value at sample 1, joint elbow_joint$"):
+        ident.regressor(r, bad, q, q)
+    with pytest.raises(ident.IdentError, match=r"^ddq: non-finite value at sample 1, joint elbow_joint$"):
+        ident.inverse_dynamics(r, q, q, bad)
+    with pytest.raises(ident.IdentError, match=r"^q: expected shape \(N, 6\) for the joints of ur5, got \(3, 5\)$"):
+        ident.mass_matrix(r, np.zeros((3, 5)))
+    with pytest.raises(ident.IdentError, match=r"joint parameters 'fv': expected 6 finite values, got 5"):
+        ident.forward_dynamics(r, q, q, q, joint_params={"fv": np.ones(5)})
+    with pytest.raises(ident.IdentError, match=r"no link or frame named 'nolink'"):
+        ident.jacobian(r, q, "nolink")
+    with pytest.raises(ident.IdentError, match=r"parameters: expected 60 values"):
+        ident.predict(r, q, q, q, np.ones(59))
+
