@@ -385,3 +385,28 @@ def test_d_optimal_design_raises_the_log_determinant():
     assert rec["final"] > rec["initial"] + 1.0  # log det grows (D-optimality maximizes it)
     assert res.config.criterion == "logdet" and np.isfinite(res.criteria["cond"])
     assert "optimized: logdet" in ex.summary_text(res)
+
+
+def test_documented_example_config_reads_as_its_comments_say():
+    # datasets_demo/examples/excite.yaml is the config format's documentation: it must load for the
+    # UR5 description it names, with the scales applied to the URDF limits as read by pinocchio (reference)
+    from pathlib import Path
+
+    example = Path(__file__).resolve().parents[1] / "datasets_demo" / "examples" / "excite.yaml"
+    robot = ident.load_robot(erd_path(UR5))
+    model = _pin_model(UR5)
+    cfg = ex.load_excitation_config(example, robot)
+    np.testing.assert_allclose(cfg.home, UR5_HOME)
+    np.testing.assert_allclose(cfg.velocity, 0.6 * model.velocityLimit)  # velocity_scale: 0.6
+    np.testing.assert_allclose(cfg.torque, 0.7 * model.effortLimit)  # torque_scale: 0.7
+    np.testing.assert_allclose(cfg.lower, model.lowerPositionLimit)
+    np.testing.assert_allclose(cfg.acceleration, [3.0, 3.0, 3.0, 5.0, 5.0, 5.0])
+    assert cfg.terms == ("fv", "fc") and cfg.criterion == "cond" and cfg.offset is None  # offset: free
+    assert cfg.period * cfg.rate == pytest.approx(round(cfg.period * cfg.rate))
+    regions = {r.name: r for r in cfg.regions}
+    assert [r.kind for r in cfg.regions] == ["plane", "cylinder", "box"]
+    assert sorted(regions["loading_station"].points) == ["flange", "tool_tip", "wrist"]
+    assert regions["bench_top"].points is None  # default: every watched point
+    # the home pose it names is feasible: the check of the home pose passes on the fine grid
+    home = ex.FourierTrajectory.from_coefficients(robot.joint_names, cfg.period, np.column_stack([cfg.home, np.zeros((robot.n, 2 * cfg.harmonics))]), cfg.home)
+    assert not ex.check_trajectory(robot, cfg, home, np.linspace(0.0, cfg.period, 50)).violations(robot.joint_names)
