@@ -126,3 +126,11 @@ def test_bad_bags_raise_data_error(tmp_path, capsys):
         L.read_logs(broken)
     assert main(["logs", str(broken)]) == 2
     assert capsys.readouterr().err.count("\n") == 1
+    # a bad bag of each storage through the CLI: one line naming the bag and the message, no output
+    for kind, name in (("ros1", "nan.bag"), ("sqlite3", "nan_db3"), ("mcap", "nan_mcap")):
+        bag = nan_bag if kind == "ros1" else write_bag(tmp_path / name, kind, (ns, pos, vel, eff))
+        out = tmp_path / f"{name}.csv"
+        assert main(["logs", str(bag), "--cutoff", "20", "--out", str(out)]) == 2
+        err = capsys.readouterr().err
+        assert err.count("\n") == 1 and name in err and "message 18" in err, err
+        assert not out.exists() and not list(tmp_path.glob(f".{name}.csv.*"))
