@@ -453,6 +453,8 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
     if method == "consistent":
         red_w = comp.reduce(_weights(comp, sigma))
         full, solver_info = _consistent(robot, comp.terms, P, red_w, result, prior_full, bounds, regularization, solver)
+        if solver_info.get("status") == "optimal_inaccurate":
+            msgs.append(f"consistent fit: solver {solver} reports an inaccurate optimum (check the bounds and the data)")
         beta = P @ full
         cov = result.cov
     else:
@@ -468,6 +470,13 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
         sources=list(comp.sources), solver=solver_info, warnings=msgs,
     )
     bad = [b for b, ok in zip(robot.body_names, res.physical) if not ok]
+    if bad and method == "consistent":
+        # An inaccurate solver optimum can break the LMIs; a "consistent" result must never be impossible.
+        raise NumericalError(
+            f"consistent fit: solver {solver} ended with status '{solver_info.get('status')}' and left link(s) {', '.join(bad)} "
+            f"physically impossible (smallest pseudo-inertia eigenvalue {res.min_eigenvalue.min():.3g}); "
+            "check the bounds (mass, COM, total mass) against the data"
+        )
     if bad:
         res.warnings.append(f"physically impossible link(s) in the realization: {', '.join(bad)} (pseudo-inertia not positive semidefinite; use method 'consistent')")
     return res
@@ -613,7 +622,7 @@ def _consistent(robot, terms, P, red_w: Reduced, wls: _LS, prior_full, bounds: B
         info.update(stage="trade-off", status=status)
     info["seconds"] = round(time.perf_counter() - t0, 3)
     if info["status"] == "optimal_inaccurate":
-        warnings.warn("consistent fit: the solver reports an inaccurate optimum", RuntimeWarning, stacklevel=3)
+        warnings.warn(f"consistent fit: solver {solver} reports an inaccurate optimum (check the bounds and the data)", RuntimeWarning, stacklevel=3)
     return full, info
 
 

@@ -107,3 +107,23 @@ def test_fit_cli_process_bad_log(demo, tmp_path):
     err = run.stderr.strip().splitlines()
     assert len(err) == 1 and "elbow_pitch.tau" in err[0]
     assert not out.exists()
+
+
+@pytest.mark.parametrize("total", ["2", "5"])
+def test_consistent_fit_never_writes_an_impossible_link(demo, tmp_path, capsys, total):
+    # A total mass far below what the torques say (the demo arm weighs 8.86 kg) pushes the solver to an
+    # inaccurate optimum (on the held-out log, 2 kg did: two links with negative pseudo-inertia
+    # eigenvalues were written with exit status 0). The result must be physically consistent
+    # (pseudo-inertia PSD, Wensing, Kim and Slotine 2017) or an error with one line, exit status 2 and
+    # no file, never an impossible link.
+    out = tmp_path / "tm.yaml"
+    held = str(DEMO / "sprout6_heldout.csv")
+    status = main(["fit", URDF, held, "--method", "consistent", "--total-mass", total, "--out", str(out), "--quiet", "--cutoff", "10"])
+    err = capsys.readouterr().err.strip().splitlines()
+    if status == 0:
+        ps = load_parameters(out)
+        assert ps.physical().all()
+        assert ps.inertial[:, 0].sum() == pytest.approx(float(total), rel=1e-6)
+    else:
+        assert status == 2 and len(err) == 1 and "consistent fit" in err[0], err
+        assert not out.exists()

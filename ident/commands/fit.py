@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import argparse
+import sys
+import warnings
 
 import numpy as np
 
@@ -95,9 +97,17 @@ def run(args) -> int:
     prior = load_parameters(args.prior, robot) if args.prior else None
     data = dataset_from_args(args, robot)
     show = not (args.quiet or args.json)
-    with Progress(data.n_samples, "fit", enabled=show) as bar:
+    with warnings.catch_warnings(record=True) as caught, Progress(data.n_samples, "fit", enabled=show) as bar:
+        # The fit records its own warnings in the result (printed with the summary, kept in the
+        # file); Python's two-line warning format with a source path is no use on a command line.
+        warnings.simplefilter("always")
         res = fit(robot, data, args.method, terms, bounds=bounds, prior=prior, regularization=args.regularization,
                   solver=args.solver, progress=lambda done, total: bar.update(done))
+    known = {" ".join(w.split()) for w in res.warnings}
+    for w in caught:
+        msg = " ".join(str(w.message).split())
+        if msg not in known and not args.quiet:
+            sys.stderr.write(f"ident fit: warning: {msg}\n")
     ps = res.to_parameter_set(data={"files": [str(f) for f in args.logs], "warnings": list(data.warnings)})
     save_parameters(args.out, ps)
     if args.json:
