@@ -35,10 +35,9 @@ def add_parser(sub) -> None:
     p.set_defaults(func=run)
 
 
-def _lim(x: float, prismatic: bool) -> str:
-    if not np.isfinite(x):
-        return "-"
-    return f"{x:.4g}" if prismatic else f"{x:.4g}"
+def _lim(x: float) -> str:
+    """A limit for the table (units in the table's heading); '-' when the description gives none."""
+    return f"{x:.4g}" if np.isfinite(x) else "-"
 
 
 def describe(robot: Robot, terms) -> dict:
@@ -92,10 +91,9 @@ def run(args) -> int:
     print()
     rows = []
     for i, j in enumerate(info["joints"]):
-        pr = j["type"] == "prismatic"
         rows.append(
             [i + 1, j["name"], j["type"], " ".join(f"{a:g}" for a in j["axis"]), j["parent_body"],
-             _lim(robot.lower[i], pr), _lim(robot.upper[i], pr), _lim(robot.velocity_limit[i], pr), _lim(robot.effort_limit[i], pr)]
+             _lim(robot.lower[i]), _lim(robot.upper[i]), _lim(robot.velocity_limit[i]), _lim(robot.effort_limit[i])]
         )
     print(f"identified joints ({robot.n}); limits in rad, rad/s, N m (m, m/s, N for prismatic joints)")
     print(format_table(["#", "joint", "type", "axis", "parent body", "lower", "upper", "velocity", "effort"], rows, "rllllrrrr"))
