@@ -466,6 +466,17 @@ def test_example_profile_reads_its_controller_export(tmp_path):
     np.testing.assert_allclose(raw.tau, ref.loc[sel, [f"{j}.tau" for j in robot.joint_names]].to_numpy(), atol=1e-9)
     ds = L.load_dataset(path, robot=robot, profile=prof)
     assert ds.info["cutoff"] == pytest.approx(2.5) and ds.segments[0].dt == pytest.approx(0.01)
+    # `ident fit --profile` reads the export like the column-convention log with the same settings
+    from ident.paramfile import load_parameters
+
+    common = ["--method", "ols", "--quiet"]
+    assert main(["fit", str(demo / "sprout6.urdf"), str(path), "--profile", str(prof), "--out", str(tmp_path / "a.yaml")] + common) == 0
+    assert main(["fit", str(demo / "sprout6.urdf"), str(demo / "sprout6_excite.csv"), "--out", str(tmp_path / "b.yaml"), "--window", "0.5:29.9",
+                 "--period", "10", "--harmonics", "5", "--no-average", "--decimate", "2"] + common) == 0
+    a, b = load_parameters(tmp_path / "a.yaml", robot), load_parameters(tmp_path / "b.yaml", robot)
+    np.testing.assert_allclose(a.inertial, b.inertial, rtol=1e-6, atol=1e-9)
+    for code in b.joint_params:
+        np.testing.assert_allclose(a.joint_params[code], b.joint_params[code], rtol=1e-6, atol=1e-9)
 
 
 def test_preliminary_delay_from_a_fit_and_cli_report(tmp_path, capsys):
