@@ -277,7 +277,10 @@ def _consistent_payload(R: np.ndarray, z: np.ndarray, solver: str) -> np.ndarray
     if prob.status not in ("optimal", "optimal_inaccurate") or J.value is None:
         raise NumericalError(f"payload: solver {solver} ended with status '{prob.status}'")
     Jv = 0.5 * (J.value + J.value.T)
-    return from_pseudo_inertia(Jv)
+    # The interior-point answer meets the cone only to the solver's tolerance; clipping those
+    # tiny negative eigenvalues keeps the payload physical by construction, not just nearly.
+    ev, V = np.linalg.eigh(Jv)
+    return from_pseudo_inertia((V * np.maximum(ev, 0.0)) @ V.T)
 
 
 def save_payload(path, result: PayloadResult) -> None:

@@ -88,8 +88,11 @@ def test_zero_payload_check(panda_case):
     assert not res.significant()
     assert 0 <= res.mass < 0.01
     assert "no payload detected" in res.summary()
-    # Noise makes the unconstrained zero payload non-physical here: the SDP step gave the result.
+    # Noise makes the unconstrained zero payload non-physical here: the SDP step gave the result,
+    # and it is physical exactly, not only to the solver's tolerance (pseudo-inertia PSD, Wensing,
+    # Kim and Slotine 2017).
     assert res.solver["stage"] == "SDP" and res.warnings
+    assert np.linalg.eigvalsh(ident.pseudo_inertia(res.params))[0] >= -1e-12 * max(res.mass, 1e-300)
 
 
 def test_payload_in_a_named_frame(panda_case):
