@@ -216,6 +216,20 @@ def test_clipped_torques_flagged_and_dropped(tmp_path, ur5, ur5_log):
     assert kept.n_samples > ds.n_samples
 
 
+def test_torque_in_wrong_unit_is_named(tmp_path, ur5, ur5_log):
+    # torques logged in mN m: far above every effort limit of the description, so clipping cannot be
+    # judged and the warning names the likely unit slip; within a few times the limit it does not
+    df = pd.read_csv(ur5_log["path"])
+    j = ur5.joint_names[1]
+    mnm, over = df.copy(), df.copy()
+    mnm[f"{j}.tau"] *= 1000.0
+    over[f"{j}.tau"] = over[f"{j}.tau"] / over[f"{j}.tau"].abs().max() * 1.5 * ur5.effort_limit[1]
+    w1 = L.read_logs(to_csv(mnm, tmp_path / "mnm.csv"), robot=ur5).warnings
+    w2 = L.read_logs(to_csv(over, tmp_path / "over.csv"), robot=ur5).warnings
+    assert any(j in w and "wrong unit or scale (mN m" in w and "mnm.csv" in w for w in w1), w1
+    assert any(j in w and "above its effort limit" in w for w in w2) and not any("wrong unit" in w for w in w2), w2
+
+
 def test_period_averaging_per_segment_with_noise_variance(tmp_path, ur5):
     rng = np.random.default_rng(8)
     period = 2.0
