@@ -1031,7 +1031,9 @@ def _condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff
     fs = 1.0 / dt
     where = f"{seg.source} (t = {seg.t[0]:.6g}..{seg.t[-1]:.6g} s)"
     if cutoff and cutoff >= 0.5 * fs:
-        raise DataError(f"cutoff: {cutoff:g} Hz is not below the Nyquist frequency {0.5 * fs:g} Hz of {where}")
+        # a controller logs at tens of Hz or more: a sample step of a second or longer means ms read as s
+        hint = f" (a {dt:g} s sample step: time in ms? set time.unit in a log profile)" if dt >= 0.5 else ""
+        raise DataError(f"cutoff: {cutoff:g} Hz is not below the Nyquist frequency {0.5 * fs:g} Hz of {where}{hint}")
     if opts.decimate > 1:
         try:  # the low-pass is the anti-alias filter: refuse a factor that would alias
             cond.decimate(seg.t[:1], opts.decimate, fs, cutoff)

@@ -327,6 +327,7 @@ def _bad_cases(ur5):
         "missing joint": (good.drop(columns=[f"{j1}.q"]), None, rf"no column '{j1}.q' for joint '{j1}'"),
         "missing time": (good.drop(columns=["time"]), None, "no time column 'time'"),
         "wrong units": (edit(lambda df: df.__setitem__(f"{j1}.q", np.linspace(0, 170, len(df)))), None, rf"joint '{j1}' position 170 rad .*far outside"),
+        "time in ms": (edit(lambda df: df.__setitem__("time", 1000.0 * df["time"])), None, r"Nyquist .* \(a 1 s sample step: time in ms\?"),
         "profile column absent": (good, {"joints": {j0: {"q": "J1_angle"}}}, f"no column 'J1_angle' for joint '{j0}'.*profile"),
         "profile joint not in model": (good, {"joints": {"gripper": "g"}}, "joint 'gripper' is not a joint of the model"),
         "profile unknown key": (good, {"jionts": {}}, "unknown key 'jionts'"),
