@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 
 from .errors import IdentError
@@ -64,6 +65,11 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         sys.stderr.write("ident: interrupted\n")
         return 130
+    except BrokenPipeError:
+        # The reader went away (`ident model ... | head`): not an error of ours; stop quietly.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     return int(status or 0)
 
 
