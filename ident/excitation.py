@@ -51,6 +51,8 @@ from .regressor import regressor_into
 COEFF_FORMAT = "ident-fourier-trajectory/1"
 CRITERIA = ("cond", "logdet")
 REGION_KINDS = ("plane", "cylinder", "box", "sphere")
+#: Largest |q(0) - home|, |q'(0)|, |q''(0)| (SI) a re-checked trajectory may have: "at rest" to round-off.
+REST_TOLERANCE = 1e-9
 #: Length scale that normalizes keep-out violations in the penalty (m).
 _KEEPOUT_SCALE = 0.1
 #: Relative cushion on torque limits and absolute cushion on keep-out distances (m) for excursions
@@ -1401,15 +1403,25 @@ def write_excitation(out_dir, result: ExcitationResult, robot: Robot) -> dict[st
     return paths
 
 
-def verify_trajectory(robot: Robot, config: ExcitationConfig, traj: FourierTrajectory) -> ExcitationResult:
+def verify_trajectory(robot: Robot, config: ExcitationConfig, traj: FourierTrajectory, where: str = "coefficients") -> ExcitationResult:
     """Re-check an existing trajectory against `config` (e.g. new limits) and report it.
 
-    Raises IdentError listing every violated constraint; otherwise returns a result with both
-    criteria and the margins, as :func:`design_excitation` would.
+    Raises IdentError listing every violated constraint, or naming the joint that does not start
+    and end at rest at home (an edited coefficients file); otherwise returns a result with both
+    criteria and the margins, as :func:`design_excitation` would. `where` names the file in errors.
     """
     cfg = config
     if traj.joint_names != robot.joint_names:
-        raise IdentError(f"coefficients: joints {', '.join(traj.joint_names)} do not match the robot's {', '.join(robot.joint_names)}")
+        raise IdentError(f"{where}: joints {', '.join(traj.joint_names)} do not match the robot's {', '.join(robot.joint_names)}")
+    # the limit checks cannot see a velocity or acceleration step at switch-on: the motion must
+    # leave and reach home at rest (t = 0 is also every period's end)
+    q0, dq0, ddq0 = (v[0] for v in traj.evaluate(np.zeros(1)))
+    for k, name in enumerate(traj.joint_names):
+        off = {"position - home": q0[k] - traj.home[k], "velocity": dq0[k], "acceleration": ddq0[k]}
+        bad = {key: v for key, v in off.items() if abs(v) > REST_TOLERANCE}
+        if bad:
+            raise IdentError(f"{where}: joint '{name}' does not start and end at rest at home ("
+                             + ", ".join(f"{key} {v:.3g}" for key, v in bad.items()) + " at t = 0): not a trajectory ident designed, or edited")
     if abs(traj.period - cfg.period) > 1e-12 * cfg.period:
         cfg = cfg.with_options(period=traj.period)
     cfg = cfg.with_options(harmonics=traj.harmonics, home=traj.home.copy())

@@ -360,6 +360,17 @@ def test_cli_writes_every_output_and_prints_the_cautions(tmp_path, capsys):
     again = tmp_path / "again"
     assert cli_main(["excite", str(erd_path(UR5)), "--config", str(path), "--out", str(again), "--from", str(out / "coefficients.yaml")]) == 0
     assert (again / "trajectory.csv").read_text() == (out / "trajectory.csv").read_text()
+    # an edited coefficients file that no longer leaves home at rest (a velocity step at switch-on,
+    # within every limit) is refused in one line naming the file and the joint; nothing is written
+    coeffs = yaml.safe_load((out / "coefficients.yaml").read_text())
+    coeffs["joints"]["elbow_joint"]["sin"][0] += 0.01
+    edited = tmp_path / "edited.yaml"
+    edited.write_text(yaml.safe_dump(coeffs, sort_keys=False))  # joint order is the robot's
+    capsys.readouterr()
+    assert cli_main(["excite", str(erd_path(UR5)), "--config", str(path), "--out", str(tmp_path / "edited_run"), "--from", str(edited)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "edited.yaml" in err[0] and "'elbow_joint' does not start and end at rest" in err[0], err
+    assert not (tmp_path / "edited_run").exists()
 
 
 def test_cli_reports_infeasible_request_in_one_line_without_output(tmp_path, capsys):

@@ -78,7 +78,7 @@ def run(args: argparse.Namespace) -> int:
     if args.from_coeffs:
         if args.augment:
             raise IdentError("--from and --augment: choose one (re-check an existing trajectory, or design a new one)")
-        result = verify_trajectory(robot, cfg, load_trajectory(args.from_coeffs, robot))
+        result = verify_trajectory(robot, cfg, load_trajectory(args.from_coeffs, robot), where=args.from_coeffs)
     else:
         logs = load_dataset(args.augment, robot=robot, profile=args.profile, options=options_from_args(args)) if args.augment else None
         result = design_excitation(robot, cfg, logs=logs, progress=not args.quiet)
