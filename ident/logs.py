@@ -1300,7 +1300,7 @@ def estimate_dataset_delay(dataset: Dataset, predicted: np.ndarray, max_delay: f
     return cond.estimate_delay([s.tau for s in dataset.segments], dataset.split(predicted), float(steps[0]), max_delay)
 
 
-def preliminary_delay(dataset: Dataset, robot, terms=("fv", "fc"), max_delay: float = 0.05, max_rows: int = 50_000, sweeps: int = 3) -> np.ndarray:
+def preliminary_delay(dataset: Dataset, robot, terms=("fv", "fc", "ia"), max_delay: float = 0.05, max_rows: int = 50_000, sweeps: int = 3) -> np.ndarray:
     """Per-joint torque delay (s) of `dataset` by a profiled least-squares search against a
     preliminary fit's prediction.
 
@@ -1317,6 +1317,8 @@ def preliminary_delay(dataset: Dataset, robot, terms=("fv", "fc"), max_delay: fl
     dataset : conditioned samples; every segment must share one sample step.
     robot : the model (joints in the data set's order).
     terms : joint terms of the preliminary fit; with "fc", samples flagged slow are left out.
+        Keep "ia" for geared arms: without the rotor-inertia column a shifted viscous column
+        (fv q'(t + d) ~ fv q' + fv d q'') stands in for it, and the "delay" found is that stand-in.
     max_delay : largest |delay| searched, s.
     max_rows : at most this many samples (evenly spread) enter the fit.
 

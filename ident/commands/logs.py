@@ -122,7 +122,7 @@ def add_parser(sub) -> None:
     p.add_argument("--estimate-delay", action="store_true",
                    help="with --robot: estimate the torque channel's delay behind the positions from a preliminary OLS fit and report it")
     p.add_argument("--remove-delay", action="store_true", help="like --estimate-delay, and remove the delay from the samples (see --out)")
-    p.add_argument("--delay-terms", default="fv,fc", metavar="T1,T2", help="joint terms of the preliminary fit (default fv,fc)")
+    p.add_argument("--delay-terms", default="fv,fc,ia", metavar="T1,T2", help="joint terms of the preliminary fit (default fv,fc,ia: without ia a delay stands in for rotor inertia)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON")
     p.add_argument("--out", metavar="FILE", help="also write the conditioned samples (.csv or .parquet, columns segment, time, <joint>.q/.dq/.ddq/.tau)")
     p.set_defaults(func=run)
