@@ -77,7 +77,6 @@ def run(args: list[str]) -> None:
 
 def main() -> int:
     robot = ident.load_robot(URDF)
-    n = robot.n
     truth = parameter_set_from_vector(
         robot,
         np.concatenate([as_built(robot).ravel(), np.column_stack([FRICTION_V, FRICTION_C, ARMATURE]).ravel()]),

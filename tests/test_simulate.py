@@ -9,7 +9,7 @@ import ident
 from ident.cli import main
 from ident.errors import IdentError
 from ident.paramfile import parameter_set_from_vector, save_parameters
-from ident.simulate import SimulationSettings, read_trajectory, simulate, write_log
+from ident.simulate import SimulationSettings, read_trajectory, simulate
 
 from conftest import UR5, erd_path
 

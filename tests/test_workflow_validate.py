@@ -10,7 +10,7 @@ import pytest
 import ident
 from ident.cli import main
 from ident.errors import IdentError
-from ident.paramfile import load_parameters, parameter_set_from_vector, save_parameters
+from ident.paramfile import load_parameters, parameter_set_from_vector
 from ident.validate import link_checks, validate
 
 DEMO = Path(__file__).resolve().parents[1] / "datasets_demo"
