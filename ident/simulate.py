@@ -130,15 +130,15 @@ def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndar
             v = pd.to_numeric(df[name], errors="raise").to_numpy(dtype=float)
         except (ValueError, TypeError):
             bad = int(np.flatnonzero(pd.to_numeric(df[name], errors="coerce").isna())[0])
-            raise DataError(f"{p}: column '{name}', row {bad + 2}: not a number") from None
+            raise DataError(f"{p}: column '{name}' has a non-numeric value at data row {bad + 1}") from None
         if not np.all(np.isfinite(v)):
-            raise DataError(f"{p}: column '{name}', row {int(np.flatnonzero(~np.isfinite(v))[0]) + 2}: not a finite number")
+            raise DataError(f"{p}: column '{name}' has an empty, NaN or infinite value at data row {int(np.flatnonzero(~np.isfinite(v))[0]) + 1}")
         return v
 
     t = column("time")
     dt = np.diff(t)
     if np.any(dt <= 0):
-        raise DataError(f"{p}: column 'time', row {int(np.flatnonzero(dt <= 0)[0]) + 3}: time does not increase")
+        raise DataError(f"{p}: column 'time' does not increase at data row {int(np.flatnonzero(dt <= 0)[0]) + 2}")
     if np.ptp(dt) > 1e-6 * np.mean(dt):
         raise DataError(f"{p}: column 'time': the trajectory must be sampled at a constant rate (the controller's)")
     q = np.column_stack([column(f"{j}.q") for j in robot.joint_names])
