@@ -30,6 +30,7 @@ from numba import njit
 
 from . import kernels
 from .dynamics import check_joint_params, inverse_dynamics, mass_matrix
+from .conditioning import derivative
 from .errors import DataError, IdentError, first_line
 from .fileio import atomic_path
 from .model import PRISMATIC, Robot, kernel_arrays
@@ -143,8 +144,9 @@ def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndar
         raise DataError(f"{p}: column 'time': the trajectory must be sampled at a constant rate (the controller's)")
     q = np.column_stack([column(f"{j}.q") for j in robot.joint_names])
     has = lambda s: all(f"{j}.{s}" in df.columns for j in robot.joint_names)  # noqa: E731
-    dq = np.column_stack([column(f"{j}.dq") for j in robot.joint_names]) if has("dq") else np.gradient(q, t, axis=0, edge_order=2)
-    ddq = np.column_stack([column(f"{j}.ddq") for j in robot.joint_names]) if has("ddq") else np.gradient(dq, t, axis=0, edge_order=2)
+    dt_mean = float(np.mean(dt))  # the grid is uniform (checked above)
+    dq = np.column_stack([column(f"{j}.dq") for j in robot.joint_names]) if has("dq") else derivative(q, dt_mean)
+    ddq = np.column_stack([column(f"{j}.ddq") for j in robot.joint_names]) if has("ddq") else derivative(dq, dt_mean)
     return t, q, dq, ddq
 
 
