@@ -7,10 +7,10 @@ are imported on first use of their names, so ``import ident`` stays quick.
 
 __version__ = "0.1.0"
 
-from .errors import DataError, IdentError, ModelError, NumericalError
-from .model import JOINT_TERMS, Robot, load_robot, parse_terms
-from .spatial import from_vector, pseudo_inertia, to_vector
-from .dynamics import (
+import importlib as _importlib
+
+from .arm.base import BaseParameters, base_parameters
+from .arm.dynamics import (
     body_poses,
     energy,
     forward_dynamics,
@@ -22,55 +22,56 @@ from .dynamics import (
     velocity_torque,
     wrench_torque,
 )
-from .regressor import iter_regressor, predict, regressor, stream_regressor
-from .base import BaseParameters, base_parameters
-
-import importlib as _importlib
+from .arm.loader import load_robot
+from .arm.model import JOINT_TERMS, Robot, parse_terms
+from .arm.regressor import iter_regressor, predict, regressor, stream_regressor
+from .arm.spatial import from_vector, pseudo_inertia, to_vector
+from .errors import DataError, IdentError, ModelError, NumericalError
 
 #: Public names imported on first use: name -> module.
 _LAZY = {
-    "ParameterSet": ".paramfile",
-    "load_parameters": ".paramfile",
-    "parameter_set_from_vector": ".paramfile",
-    "save_parameters": ".paramfile",
-    "Dataset": ".logs",
-    "LogOptions": ".logs",
-    "Segment": ".logs",
-    "apply_delay": ".logs",
-    "estimate_dataset_delay": ".logs",
-    "load_dataset": ".logs",
-    "load_profile": ".logs",
-    "preliminary_delay": ".logs",
-    "read_logs": ".logs",
-    "Bounds": ".estimate",
-    "FitResult": ".estimate",
-    "fit": ".estimate",
-    "fit_compressed": ".estimate",
-    "Compressor": ".compress",
-    "PayloadResult": ".payload",
-    "identify_payload": ".payload",
-    "load_payload": ".payload",
-    "save_payload": ".payload",
-    "ExcitationConfig": ".excitation",
-    "ExcitationResult": ".excitation",
-    "FourierTrajectory": ".excitation",
-    "design_excitation": ".excitation",
-    "load_excitation_config": ".excitation",
-    "load_trajectory": ".excitation",
-    "write_excitation": ".excitation",
-    "SimulationResult": ".simulate",
-    "SimulationSettings": ".simulate",
-    "read_trajectory": ".simulate",
-    "simulate": ".simulate",
-    "write_log": ".simulate",
-    "Validation": ".validate",
-    "validate": ".validate",
-    "validate_dataset": ".validate",
-    "export_parameters": ".export",
-    "export_urdf": ".export",
-    "export_urdf_text": ".export",
-    "render_report": ".report",
-    "write_report": ".report",
+    "ParameterSet": ".arm.parameters",
+    "load_parameters": ".handover.paramfile",
+    "parameter_set_from_vector": ".arm.parameters",
+    "save_parameters": ".handover.paramfile",
+    "Dataset": ".data.dataset",
+    "LogOptions": ".data.options",
+    "Segment": ".data.dataset",
+    "apply_delay": ".data.delay",
+    "estimate_dataset_delay": ".data.delay",
+    "load_dataset": ".data.load",
+    "load_profile": ".data.profile",
+    "preliminary_delay": ".estimation.delay",
+    "read_logs": ".data.load",
+    "Bounds": ".estimation.result",
+    "FitResult": ".estimation.result",
+    "fit": ".estimation.estimate",
+    "fit_compressed": ".estimation.estimate",
+    "Compressor": ".estimation.compress",
+    "PayloadResult": ".estimation.payload",
+    "identify_payload": ".estimation.payload",
+    "load_payload": ".estimation.payload",
+    "save_payload": ".estimation.payload",
+    "ExcitationConfig": ".motion.config",
+    "ExcitationResult": ".motion.design",
+    "FourierTrajectory": ".motion.fourier",
+    "design_excitation": ".motion.design",
+    "load_excitation_config": ".motion.config",
+    "load_trajectory": ".motion.fourier",
+    "write_excitation": ".motion.outputs",
+    "SimulationResult": ".motion.simulate",
+    "SimulationSettings": ".motion.simulate",
+    "read_trajectory": ".motion.simulate",
+    "simulate": ".motion.simulate",
+    "write_log": ".motion.simulate",
+    "Validation": ".handover.check",
+    "validate": ".handover.check",
+    "validate_dataset": ".handover.check",
+    "export_parameters": ".handover.export",
+    "export_urdf": ".handover.export",
+    "export_urdf_text": ".handover.export",
+    "render_report": ".handover.report",
+    "write_report": ".handover.report",
 }
 
 

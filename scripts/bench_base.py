@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 import ident
-from ident import base
+from ident.arm import base
 
 
 def main() -> None:

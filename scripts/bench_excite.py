@@ -17,7 +17,7 @@ import time
 from pathlib import Path
 
 import ident
-from ident import excitation as ex
+from ident.motion.design import ExcitationResult, design_excitation
 
 
 def ur5_path() -> Path:
@@ -42,9 +42,9 @@ def config(budget: float, seed: int) -> dict:
     }
 
 
-def run(robot, budget: float, seed: int) -> tuple[float, float, ex.ExcitationResult]:
+def run(robot, budget: float, seed: int) -> tuple[float, float, ExcitationResult]:
     t0 = time.perf_counter()
-    res = ex.design_excitation(robot, config(budget, seed), progress=True)
+    res = design_excitation(robot, config(budget, seed), progress=True)
     return time.perf_counter() - t0, res.criteria["cond"], res
 
 
@@ -55,7 +55,7 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=0)
     args = ap.parse_args()
     robot = ident.load_robot(ur5_path())
-    ex.design_excitation(robot, {**config(5.0, args.seed), "optimizer": {"starts": 1, "budget": 5.0, "max_iterations": 2}})  # compile kernels, fill caches
+    design_excitation(robot, {**config(5.0, args.seed), "optimizer": {"starts": 1, "budget": 5.0, "max_iterations": 2}})  # compile kernels, fill caches
     t_s, c_s, r_s = run(robot, args.short, args.seed)
     t_l, c_l, r_l = run(robot, args.long, args.seed)
     print(f"robot {robot.name}: {robot.n} joints, 5 harmonics, terms fv,fc, {len(r_s.base_names)} base parameters, table keep-out")

@@ -58,7 +58,7 @@ def generate(folder: Path, hours: float) -> tuple[Path, Path, int]:
 def child(path: str, averaged: bool) -> None:
     """Load + condition `path`, print timing and peak memory as JSON (run in a fresh process)."""
     t0 = time.perf_counter()
-    import ident.logs as L
+    import ident as L
 
     t1 = time.perf_counter()
     ds = L.load_dataset(path, options=AVERAGED if averaged else OPTIONS)

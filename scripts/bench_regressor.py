@@ -2,9 +2,9 @@
 
 Prints, for the 7-joint arm of example-robot-data (panda, fingers locked):
 
-* microseconds per sample of ``ident.regressor.iter_regressor`` at N = 100 000 (best of a few runs,
+* microseconds per sample of ``ident.arm.regressor.iter_regressor`` at N = 100 000 (best of a few runs,
   after a warm-up so numba compilation is not timed), on one thread, on all of numba's threads,
-  and with the automatic rule of ``ident.kernels.use_threads`` (threads only when cores are idle);
+  and with the automatic rule of ``ident.arm.kernels.use_threads`` (threads only when cores are idle);
 * microseconds per sample of ``pin.computeJointTorqueRegressor`` called once per sample from
   Python on the same states, and the ratio of the two;
 * peak resident memory of a child process that streams the regressor of N = 1 000 000 samples
@@ -50,8 +50,8 @@ def states(robot, N: int, seed: int = 0):
 
 def ident_runner(robot, q, dq, ddq, mode: str):
     """A callable that streams the regressor of the whole log once with threading `mode`."""
-    from ident import kernels
-    from ident.regressor import iter_regressor
+    from ident.arm import kernels
+    from ident.arm.regressor import iter_regressor
 
     def run():
         previous = kernels.set_threading(mode)
@@ -102,7 +102,7 @@ def measure(runners: dict, samples: dict, repeat: int) -> dict:
 def memory_child(N: int) -> None:
     """Run in a child process: stream the regressor of N samples and print the peak RSS (MB)."""
     import ident
-    from ident.regressor import iter_regressor
+    from ident.arm.regressor import iter_regressor
 
     robot = ident.load_robot(panda_path(), locked=LOCKED)
     q, dq, ddq = states(robot, N, seed=1)
@@ -127,14 +127,15 @@ def main(argv=None) -> int:
         memory_child(args.memory_child)
         return 0
 
-    import ident
     import numba
+
+    import ident
 
     robot = ident.load_robot(panda_path(), locked=LOCKED)
     q, dq, ddq = states(robot, args.samples)
     print(f"robot: {robot.describe()}; regressor {robot.n} x {robot.n_params()} per sample")
     print(f"machine: {os.cpu_count()} CPUs, numba threads {numba.get_num_threads()}, load average {os.getloadavg()[0]:.2f}")
-    from ident import kernels
+    from ident.arm import kernels
 
     print(f"threads chosen by the automatic rule for a 2048-sample chunk now: {kernels.use_threads(2048)}")
     runners, samples = {}, {}

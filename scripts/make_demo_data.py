@@ -32,8 +32,9 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import ident  # noqa: E402
-from ident.paramfile import parameter_set_from_vector, save_parameters  # noqa: E402
-from ident.spatial import to_vector, from_vector  # noqa: E402
+from ident.arm.parameters import parameter_set_from_vector
+from ident.arm.spatial import from_vector, to_vector  # noqa: E402
+from ident.handover.paramfile import save_parameters  # noqa: E402
 
 DEMO = ROOT / "datasets_demo"
 PACKAGED = ROOT / "ident" / "demo_data"

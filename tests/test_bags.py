@@ -7,11 +7,12 @@ import pytest
 
 pytest.importorskip("rosbags")
 from rosbags.rosbag1 import Writer as Writer1  # noqa: E402
-from rosbags.rosbag2 import StoragePlugin, Writer as Writer2  # noqa: E402
+from rosbags.rosbag2 import StoragePlugin  # noqa: E402
+from rosbags.rosbag2 import Writer as Writer2
 from rosbags.typesys import Stores, get_typestore  # noqa: E402
 
-from ident import logs as L  # noqa: E402
 from ident.cli import main  # noqa: E402
+from ident.data.load import load_dataset, read_logs  # noqa: E402
 from ident.errors import DataError  # noqa: E402
 
 JOINTS = ["base_yaw", "shoulder", "elbow"]
@@ -62,7 +63,7 @@ def write_bag(path, kind, data, topic="/joint_states", extra=()):
 def test_bag_read_back_exactly(tmp_path, kind):
     data = samples()
     path = write_bag(tmp_path / ("run.bag" if kind == "ros1" else f"run_{kind}"), kind, data)
-    ds = L.read_logs(path, options={"jitter": 0.5})  # keep the jittered stamps as they are
+    ds = read_logs(path, options={"jitter": 0.5})  # keep the jittered stamps as they are
     ns, pos, vel, eff = data
     assert ds.joint_names == JOINTS
     np.testing.assert_array_equal(ds.t, ns * 1e-9)
@@ -80,7 +81,7 @@ def test_ros2_storage_file_path_and_conditioning(tmp_path):
     eff = 3 * pos
     path = write_bag(tmp_path / "arm", "mcap", (ns, pos, np.zeros_like(pos), eff))
     storage = next(path.glob("*.mcap"))  # the storage file inside the folder also works
-    ds = L.load_dataset(storage, options={"max_frequency": 0.4})
+    ds = load_dataset(storage, options={"max_frequency": 0.4})
     np.testing.assert_allclose(ds.tau, 3 * ds.q, atol=1e-9)
     w = 2 * np.pi * 0.4
     i = np.rint((ds.t - T0 * 1e-9) * 500).astype(int)
@@ -95,7 +96,7 @@ def test_profile_maps_names_units_and_skips_other_publishers(tmp_path):
     deg = np.degrees(pos)
     path = write_bag(tmp_path / "deg.bag", "ros1", (ns, deg, np.degrees(vel), eff), extra=grip)
     prof = {"units": {"q": "deg", "dq": "deg/s"}, "joints": {"yaw": {"name": "base_yaw", "sign": -1}, "shoulder": {}, "elbow": {}}}
-    ds = L.read_logs(path, profile=prof, options={"jitter": 0.5})
+    ds = read_logs(path, profile=prof, options={"jitter": 0.5})
     assert ds.joint_names == ["yaw", "shoulder", "elbow"]
     np.testing.assert_allclose(ds.q, pos * [-1, 1, 1], atol=1e-12)
     np.testing.assert_allclose(ds.dq, vel * [-1, 1, 1], atol=1e-12)
@@ -106,24 +107,24 @@ def test_bad_bags_raise_data_error(tmp_path, capsys):
     data = samples(50)
     path = write_bag(tmp_path / "a.bag", "ros1", data, topic="/arm/joint_states")
     with pytest.raises(DataError, match="no sensor_msgs/JointState topic '/joint_states'.*/arm/joint_states"):
-        L.read_logs(path, profile={"topic": "/joint_states"})
+        read_logs(path, profile={"topic": "/joint_states"})
     with pytest.raises(DataError, match="never seen: wrist"):
-        L.read_logs(path, profile={"joints": {"wrist": {}}})
+        read_logs(path, profile={"joints": {"wrist": {}}})
     ns, pos, vel, eff = data
     pos = pos.copy()
     pos[17, 1] = np.nan
     nan_bag = write_bag(tmp_path / "nan.bag", "ros1", (ns, pos, vel, eff))
     with pytest.raises(DataError, match="non-finite position of joint 'shoulder' in message 18"):
-        L.read_logs(nan_bag)
+        read_logs(nan_bag)
     ns2 = ns.copy()
     ns2[30] = ns2[29]  # duplicate header stamp
     dup = write_bag(tmp_path / "dup.bag", "ros1", (ns2, data[1], vel, eff))
     with pytest.raises(DataError, match="duplicate timestamp at data message 31"):
-        L.read_logs(dup)
+        read_logs(dup)
     broken = tmp_path / "broken.bag"
     broken.write_bytes(b"#ROSBAG V2.0\n garbage")
     with pytest.raises(DataError, match="broken.bag"):
-        L.read_logs(broken)
+        read_logs(broken)
     assert main(["logs", str(broken)]) == 2
     assert capsys.readouterr().err.count("\n") == 1
     # a bad bag of each storage through the CLI: one line naming the bag and the message, no output

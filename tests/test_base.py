@@ -7,13 +7,12 @@ import json
 import numpy as np
 import pinocchio as pin
 import pytest
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
-from ident.base import SamplingWarning, base_parameters, random_states
+from ident.arm.base import SamplingWarning, base_parameters, random_states
+from ident.arm.regressor import regressor
 from ident.cli import main
-from ident.regressor import regressor
-
-from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 PLANAR_2R = """<?xml version="1.0"?>
 <robot name="planar2r">
@@ -107,7 +106,7 @@ def test_random_states_cover_whole_range_within_limits(tmp_path):
 
 
 def test_same_seed_gives_the_same_result_without_the_cache(ur5):
-    from ident import base
+    from ident.arm import base
 
     a = base_parameters(ur5, "fv,ia", seed=6)
     base._CACHE.clear()

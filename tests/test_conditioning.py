@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from ident import conditioning as C
+from ident.data import conditioning as C
 from ident.errors import DataError, NumericalError
 
 FS = 1000.0  # Hz

@@ -11,10 +11,10 @@ import pytest
 import yaml
 
 import ident
+from ident.arm.dh import load_dh, parse_dh
+from ident.arm.spatial import matrix_to_rpy
+from ident.arm.urdf import parse_urdf
 from ident.cli import main as cli_main
-from ident.dh import load_dh, parse_dh
-from ident.spatial import matrix_to_rpy
-from ident.urdf import parse_urdf
 
 pin = pytest.importorskip("pinocchio")
 
@@ -22,7 +22,7 @@ EXAMPLE = Path(__file__).resolve().parents[1] / "datasets_demo" / "examples" / "
 DEG, MM = np.pi / 180, 1e-3
 
 
-# --- DH matrices as usually defined (a trade fact), written out independently of ident.dh -------
+# --- DH matrices as usually defined (a trade fact), written out independently of ident.arm.dh -------
 def rot_x(t):
     c, s = np.cos(t), np.sin(t)
     return np.array([[1, 0, 0, 0], [0, c, -s, 0], [0, s, c, 0], [0, 0, 0, 1.0]])

@@ -21,10 +21,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pytest
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
-from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
-from ident.base import random_states
+from ident.arm.base import random_states
 
 pin = pytest.importorskip("pinocchio")
 
@@ -302,9 +302,9 @@ def test_inverse_dynamics_with_other_parameters(pair):
 
 def test_streamed_and_threaded_regressor_equal_the_full_one():
     # Chunks of any size, the serial and the threaded kernel must all give the same regressor.
-    from ident import kernels
-    from ident.model import kernel_arrays
-    from ident.regressor import _term_codes, iter_regressor
+    from ident.arm import kernels
+    from ident.arm.model import kernel_arrays
+    from ident.arm.regressor import _term_codes, iter_regressor
 
     pair = make_pair(*CASES["baxter_branches"])
     r = pair.robot
@@ -349,7 +349,7 @@ def test_streamed_and_threaded_regressor_equal_the_full_one():
 
 def _regressor_sum(args):
     robot, q, dq, ddq = args
-    from ident import kernels
+    from ident.arm import kernels
 
     kernels.set_threading("on")  # refused in a forked child: stays on one thread
     return float(ident.regressor(robot, q, dq, ddq).sum())
@@ -359,7 +359,7 @@ def test_forked_children_compute_the_regressor_after_threaded_use():
     # numba's OpenMP pool does not survive fork(); ident keeps forked children on one thread.
     import multiprocessing as mp
 
-    from ident import kernels
+    from ident.arm import kernels
 
     pair = make_pair(*CASES["panda"])
     q, dq, ddq = random_states(pair.robot, 1200, np.random.default_rng(29))

@@ -7,21 +7,19 @@ the same URDF with the same inertial parameters, and the compressed solve is com
 
 from __future__ import annotations
 
-
 import numpy as np
 import pinocchio as pin
 import pytest
 import scipy.linalg
-
-import ident
-from ident.base import base_parameters
-from ident.compress import Compressor, compress
-from ident.errors import DataError, IdentError, NumericalError
-from ident.estimate import ExcitationWarning, fit, fit_compressed
-from ident.spatial import from_pseudo_inertia, from_vector, pseudo_inertia
-
 from conftest import UR5, erd_path
 
+import ident
+from ident.arm.base import base_parameters
+from ident.arm.spatial import from_pseudo_inertia, from_vector, pseudo_inertia
+from ident.errors import DataError, IdentError, NumericalError
+from ident.estimation.compress import Compressor, compress
+from ident.estimation.estimate import fit, fit_compressed
+from ident.estimation.result import ExcitationWarning
 
 # ------------------------------------------------------------------------------------------------
 # helpers shared with the other estimation test files

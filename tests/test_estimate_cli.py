@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 
 import ident
-from ident.base import base_parameters
+from ident.arm.base import base_parameters
 from ident.cli import main
-from ident.paramfile import load_parameters
+from ident.handover.paramfile import load_parameters
 
 DEMO = Path(ident.__file__).parent / "demo_data"
 URDF = str(DEMO / "sprout6.urdf")

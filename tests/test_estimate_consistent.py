@@ -7,16 +7,16 @@ import warnings
 
 import numpy as np
 import pytest
-
-import ident
-from ident.base import base_parameters
-from ident.errors import IdentError, NumericalError
-from ident.estimate import Bounds, fit
-from ident.paramfile import load_parameters, save_parameters
-from ident.spatial import from_vector, pseudo_inertia
-
 from conftest import UR5, erd_path
 from test_estimate import random_physical_truth, scaled_error, sine_trajectory
+
+import ident
+from ident.arm.base import base_parameters
+from ident.arm.spatial import from_vector, pseudo_inertia
+from ident.errors import IdentError, NumericalError
+from ident.estimation.estimate import fit
+from ident.estimation.result import Bounds
+from ident.handover.paramfile import load_parameters, save_parameters
 
 TERMS = ("fv", "fc")
 

@@ -12,13 +12,18 @@ import numpy as np
 import pinocchio as pin
 import pytest
 import scipy.optimize
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
-from ident import excitation as ex
 from ident.cli import main as cli_main
 from ident.errors import IdentError
-
-from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
+from ident.motion.config import ExcitationConfig, load_excitation_config
+from ident.motion.constraints import check_trajectory
+from ident.motion.criteria import criteria_from_information, information_matrix
+from ident.motion.design import design_criteria, design_excitation, random_feasible
+from ident.motion.fourier import FourierTrajectory, load_trajectory
+from ident.motion.outputs import summary_text, write_excitation
+from ident.motion.problem import DesignProblem
 
 UR5_HOME = [0.0, -1.57, 1.57, -1.57, -1.57, 0.0]
 PANDA_HOME = [0.0, -0.3, 0.0, -2.2, 0.0, 2.0, 0.8]
@@ -75,7 +80,7 @@ def ur5_case():
     cfg = _config(model, UR5_HOME, UR5_WATCH)
     cfg["keepout"]["regions"].append({"name": "pillar", "type": "cylinder", "center": [-0.6, 0.0], "radius": 0.1, "margin": 0.05})
     cfg["keepout"]["regions"].append({"name": "station", "type": "box", "lower": [0.3, 0.5, 0.0], "upper": [0.8, 1.0, 0.9], "margin": 0.05})
-    return robot, model, cfg, ex.design_excitation(robot, cfg)
+    return robot, model, cfg, design_excitation(robot, cfg)
 
 
 @pytest.fixture(scope="module")
@@ -83,7 +88,7 @@ def panda_case():
     robot = ident.load_robot(erd_path(PANDA), locked=PANDA_FINGERS_LOCKED)
     model = _pin_model(PANDA, PANDA_FINGERS_LOCKED)
     cfg = _config(model, PANDA_HOME, PANDA_WATCH)
-    return robot, model, cfg, ex.design_excitation(robot, cfg)
+    return robot, model, cfg, design_excitation(robot, cfg)
 
 
 def _assert_constraints_hold(model, cfg, traj, t):
@@ -140,11 +145,11 @@ def test_starts_and_ends_at_rest_at_home(case, request):
 
 def test_regenerating_from_the_coefficients_file_reproduces_the_csv(ur5_case, tmp_path):
     robot, _, _, res = ur5_case
-    paths = ex.write_excitation(tmp_path / "out", res, robot)
+    paths = write_excitation(tmp_path / "out", res, robot)
     table = np.loadtxt(paths["csv"], delimiter=",", skiprows=1)
     header = paths["csv"].read_text().splitlines()[0].split(",")
     assert header[:4] == ["time", "shoulder_pan_joint.q", "shoulder_pan_joint.dq", "shoulder_pan_joint.ddq"]
-    traj = ex.load_trajectory(paths["coefficients"], robot)
+    traj = load_trajectory(paths["coefficients"], robot)
     t, q, dq, ddq = traj.sample(res.config.rate, res.config.periods)
     assert np.max(np.abs(table[:, 0] - t)) <= 1e-12
     assert np.max(np.abs(table[:, 1::3] - q)) <= 1e-12
@@ -160,9 +165,9 @@ def test_regenerating_from_the_coefficients_file_reproduces_the_csv(ur5_case, tm
 def test_optimized_condition_number_beats_random_feasible_median_by_five(ur5_case):
     robot, _, cfg, res = ur5_case
     # 100 random trajectories of the same family, each scaled to its largest feasible motion
-    rnd = ex.random_feasible(robot, cfg, 100, seed=11)
+    rnd = random_feasible(robot, cfg, 100, seed=11)
     median = float(np.median([c["cond"] for _, c in rnd]))
-    opt = ex.design_criteria(robot, res.config, res.trajectory)["cond"]
+    opt = design_criteria(robot, res.config, res.trajectory)["cond"]
     # measured when written: random median 67.4, optimized 7.34 (2 starts, 40 iterations a stage) -> 9.2x
     assert median / opt >= 5.0, (median, opt)
 
@@ -171,9 +176,9 @@ def test_criteria_match_numpy_on_the_stacked_column_scaled_regressor(ur5_case):
     robot, _, cfg, res = ur5_case
     t = np.arange(300) * (cfg["period"] / 300)
     q, dq, ddq = res.trajectory.evaluate(t)
-    bp = ident.base.base_parameters(robot, "fv,fc")
+    bp = ident.arm.base.base_parameters(robot, "fv,fc")
     W = bp.columns(ident.regressor(robot, q, dq, ddq, "fv,fc")).reshape(-1, bp.n_base)
-    crit = ex.criteria_from_information(ex.information_matrix(robot, q, dq, ddq, "fv,fc"))
+    crit = criteria_from_information(information_matrix(robot, q, dq, ddq, "fv,fc"))
     # reference: numpy's 2-norm condition number of the explicitly column-normalized matrix
     assert crit["cond"] == pytest.approx(np.linalg.cond(W / np.linalg.norm(W, axis=0)), rel=1e-8)
     assert crit["logdet"] == pytest.approx(np.linalg.slogdet(W.T @ W)[1], rel=1e-10)
@@ -182,8 +187,8 @@ def test_criteria_match_numpy_on_the_stacked_column_scaled_regressor(ur5_case):
 def test_objective_gradient_matches_finite_differences(ur5_case):
     robot, _, cfg, _ = ur5_case
     for crit in ("cond", "logdet"):
-        c = ex.ExcitationConfig.from_dict(robot, {**cfg, "criterion": crit})
-        prob = ex._Problem(robot, c, None)
+        c = ExcitationConfig.from_dict(robot, {**cfg, "criterion": crit})
+        prob = DesignProblem(robot, c, None)
         z = prob.random_z(np.random.default_rng(5))
         s, _ = prob.repair(z, s_max=np.inf)
         z = 1.2 * s * z  # slightly outside: penalties active too
@@ -203,7 +208,7 @@ def test_objective_gradient_matches_finite_differences(ur5_case):
 
 def test_fourier_series_derivatives_and_period():
     rng = np.random.default_rng(0)
-    traj = ex.FourierTrajectory(["a", "b"], 5.0, rng.normal(size=2), rng.normal(size=(2, 3)), rng.normal(size=(2, 3)), np.zeros(2))
+    traj = FourierTrajectory(["a", "b"], 5.0, rng.normal(size=2), rng.normal(size=(2, 3)), rng.normal(size=(2, 3)), np.zeros(2))
     t = np.linspace(0.0, 5.0, 20001)
     q, dq, ddq = traj.evaluate(t)
     # central differences of the sampled series (numpy.gradient) agree with the analytic derivatives
@@ -220,11 +225,11 @@ def test_same_seed_gives_the_same_trajectory():
     robot = ident.load_robot(erd_path(UR5))
     cfg = _config(_pin_model(UR5), UR5_HOME, UR5_WATCH)
     cfg["optimizer"].update(starts=1, max_iterations=10)
-    a = ex.design_excitation(robot, cfg, max_evaluations=25)
-    b = ex.design_excitation(robot, cfg, max_evaluations=25)
+    a = design_excitation(robot, cfg, max_evaluations=25)
+    b = design_excitation(robot, cfg, max_evaluations=25)
     np.testing.assert_array_equal(a.trajectory.coefficients, b.trajectory.coefficients)
     cfg["optimizer"]["seed"] = 4
-    c = ex.design_excitation(robot, cfg, max_evaluations=25)
+    c = design_excitation(robot, cfg, max_evaluations=25)
     assert not np.array_equal(a.trajectory.coefficients, c.trajectory.coefficients)
 
 
@@ -237,13 +242,13 @@ def test_time_budget_stops_the_optimizer_and_progress_shows_the_best_criterion(m
     # return a trajectory that keeps every constraint (checked with pinocchio, reference)
     cfg["optimizer"].update(starts=3, budget=0.01, max_iterations=40)
     monkeypatch.setattr(sys.stderr, "isatty", lambda: True)  # the bar draws on terminals only
-    res = ex.design_excitation(robot, cfg, progress=True)
+    res = design_excitation(robot, cfg, progress=True)
     bar = capsys.readouterr().err
     assert res.budget_hit
     assert res.starts[0]["stop"] == "time budget"
     assert len(res.starts) < 3  # later starts skipped once the budget is spent
     assert "excite [" in bar and f"best cond {res.starts[0]['final']:.4g}" in bar
-    assert "time budget stopped the optimizer" in ex.summary_text(res)
+    assert "time budget stopped the optimizer" in summary_text(res)
     t = (np.arange(1000) + 0.5) * (cfg["period"] / 1000)
     _assert_constraints_hold(_pin_model(UR5), cfg, res.trajectory, t)
 
@@ -263,16 +268,16 @@ def test_augment_mode_completes_rank_deficient_earlier_logs():
         q[:, j] += 0.4 * np.sin(w * t)
         dq[:, j] = 0.4 * w * np.cos(w * t)
         ddq[:, j] = -0.4 * w * w * np.sin(w * t)
-    res = ex.design_excitation(robot, cfg, logs=(q, dq, ddq))
+    res = design_excitation(robot, cfg, logs=(q, dq, ddq))
     assert res.criteria_prior["cond"] == np.inf
     assert np.isfinite(res.criteria["cond"])
     # the reported combined criterion is that of the stacked data (old log + new CSV samples)
     tn, qn, dqn, ddqn = res.sample()
     stacked = [np.vstack([a, b[:-1]]) for a, b in ((q, qn), (dq, dqn), (ddq, ddqn))]
-    ref = ex.criteria_from_information(ex.information_matrix(robot, *stacked, "fv,fc"))
+    ref = criteria_from_information(information_matrix(robot, *stacked, "fv,fc"))
     assert res.criteria["cond"] == pytest.approx(ref["cond"], rel=1e-6)
     assert res.criteria["logdet"] == pytest.approx(ref["logdet"], rel=1e-9)
-    assert "rank deficient" in ex.summary_text(res)
+    assert "rank deficient" in summary_text(res)
 
 
 def test_augment_mode_reads_earlier_logs_through_the_log_reader(tmp_path, capsys):
@@ -287,7 +292,7 @@ def test_augment_mode_reads_earlier_logs_through_the_log_reader(tmp_path, capsys
     path = tmp_path / "first_run.csv"
     np.savetxt(path, np.column_stack([t, q, tau]), delimiter=",", header=",".join(cols), comments="")
     ds = ident.load_dataset([path], robot=robot, options={"cutoff": 4.0})
-    res = ex.design_excitation(robot, cfg, logs=ds, max_evaluations=10)
+    res = design_excitation(robot, cfg, logs=ds, max_evaluations=10)
     assert res.criteria_prior["cond"] == np.inf  # one joint moved: most base parameters unseen
     assert np.isfinite(res.criteria["cond"])
     # the same through the CLI: the summary reports the earlier logs, the new run and both combined
@@ -339,7 +344,7 @@ def _small(**over):
 )
 def test_infeasible_or_malformed_requests_raise(ur5, cfg, message):
     with pytest.raises(IdentError, match=None) as err:
-        ex.design_excitation(ur5, cfg)
+        design_excitation(ur5, cfg)
     assert message in str(err.value)
 
 
@@ -391,11 +396,11 @@ def test_d_optimal_design_raises_the_log_determinant():
     robot = ident.load_robot(erd_path(UR5))
     cfg = _config(_pin_model(UR5), UR5_HOME, UR5_WATCH, criterion="logdet")
     cfg["optimizer"].update(starts=1, max_iterations=15)
-    res = ex.design_excitation(robot, cfg)
+    res = design_excitation(robot, cfg)
     rec = res.starts[0]
     assert rec["final"] > rec["initial"] + 1.0  # log det grows (D-optimality maximizes it)
     assert res.config.criterion == "logdet" and np.isfinite(res.criteria["cond"])
-    assert "optimized: logdet" in ex.summary_text(res)
+    assert "optimized: logdet" in summary_text(res)
 
 
 def test_documented_example_config_reads_as_its_comments_say():
@@ -406,7 +411,7 @@ def test_documented_example_config_reads_as_its_comments_say():
     example = Path(__file__).resolve().parents[1] / "datasets_demo" / "examples" / "excite.yaml"
     robot = ident.load_robot(erd_path(UR5))
     model = _pin_model(UR5)
-    cfg = ex.load_excitation_config(example, robot)
+    cfg = load_excitation_config(example, robot)
     np.testing.assert_allclose(cfg.home, UR5_HOME)
     np.testing.assert_allclose(cfg.velocity, 0.6 * model.velocityLimit)  # velocity_scale: 0.6
     np.testing.assert_allclose(cfg.torque, 0.7 * model.effortLimit)  # torque_scale: 0.7
@@ -419,5 +424,5 @@ def test_documented_example_config_reads_as_its_comments_say():
     assert sorted(regions["loading_station"].points) == ["flange", "tool_tip", "wrist"]
     assert regions["bench_top"].points is None  # default: every watched point
     # the home pose it names is feasible: the check of the home pose passes on the fine grid
-    home = ex.FourierTrajectory.from_coefficients(robot.joint_names, cfg.period, np.column_stack([cfg.home, np.zeros((robot.n, 2 * cfg.harmonics))]), cfg.home)
-    assert not ex.check_trajectory(robot, cfg, home, np.linspace(0.0, cfg.period, 50)).violations(robot.joint_names)
+    home = FourierTrajectory.from_coefficients(robot.joint_names, cfg.period, np.column_stack([cfg.home, np.zeros((robot.n, 2 * cfg.harmonics))]), cfg.home)
+    assert not check_trajectory(robot, cfg, home, np.linspace(0.0, cfg.period, 50)).violations(robot.joint_names)

@@ -9,15 +9,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 import yaml
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
+from ident.arm.parameters import parameter_set_from_vector
+from ident.arm.spatial import from_pseudo_inertia, pseudo_inertia
 from ident.cli import main
 from ident.errors import IdentError
-from ident.export import export_urdf, export_urdf_text
-from ident.paramfile import parameter_set_from_dict, parameter_set_from_vector, save_parameters
-from ident.spatial import from_pseudo_inertia, pseudo_inertia
-
-from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
+from ident.handover.export import export_urdf, export_urdf_text
+from ident.handover.paramfile import parameter_set_from_dict, save_parameters
 
 DEMO_URDF = Path(__file__).resolve().parents[1] / "datasets_demo" / "sprout6.urdf"
 INERTIAL = re.compile(r"<inertial\b.*?</inertial\s*>", re.S)

@@ -13,10 +13,15 @@ from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 import ident
-from ident import logs as L
+from ident.arm.model import Robot
 from ident.cli import main
+from ident.data.delay import apply_delay, estimate_dataset_delay
+from ident.data.load import load_dataset, read_logs
+from ident.data.options import excitation_options
+from ident.data.profile import LogProfile, load_profile
+from ident.data.samples import write_samples
 from ident.errors import DataError, IdentError
-from ident.model import Robot
+from ident.estimation.delay import preliminary_delay
 
 FS = 1000.0
 FREQS = np.array([0.1, 0.3, 0.7, 1.2])  # Hz; highest excited frequency 1.2 Hz
@@ -83,7 +88,7 @@ def test_csv_and_parquet_read_back_exactly_in_model_order(tmp_path, ur5):
     to_csv(df, tmp_path / "a.csv")
     df.to_parquet(tmp_path / "a.parquet")
     for name in ("a.csv", "a.parquet"):
-        ds = L.read_logs(tmp_path / name, robot=ur5)
+        ds = read_logs(tmp_path / name, robot=ur5)
         assert ds.joint_names == ur5.joint_names
         np.testing.assert_array_equal(ds.t, t)
         np.testing.assert_array_equal(ds.q, q)
@@ -99,7 +104,7 @@ def test_load_dataset_conditions_noisy_log(tmp_path, ur5):
     qn = q + 1e-4 * rng.standard_normal(q.shape)
     tau = 2.0 * qn + 0.5  # torque built from the *noisy* position: parallel filtering must keep the relation
     path = to_csv(table(t, ur5.joint_names, qn, tau), tmp_path / "noisy.csv")
-    ds = L.load_dataset(path, robot=ur5, options={"max_frequency": FREQS.max()})
+    ds = load_dataset(path, robot=ur5, options={"max_frequency": FREQS.max()})
     assert ds.info["cutoff"] == pytest.approx(5 * FREQS.max())  # common practice ratio, documented
     i = np.rint(ds.t * FS).astype(int)
     err_v = np.sqrt(np.mean((ds.dq - dq[i]) ** 2)) / np.sqrt(np.mean(dq**2))
@@ -116,7 +121,7 @@ def test_logged_velocity_and_acceleration_used_when_asked(tmp_path, ur5):
     t = np.arange(0.0, 3.0, 1e-3)
     q, dq, ddq = motion(t, ur5.n, rng)
     path = to_csv(table(t, ur5.joint_names, q, q.copy(), dq=dq, ddq=ddq), tmp_path / "sim.csv")
-    ds = L.load_dataset(path, robot=ur5, options={"cutoff": 0, "logged_velocity": True, "logged_acceleration": True})
+    ds = load_dataset(path, robot=ur5, options={"cutoff": 0, "logged_velocity": True, "logged_acceleration": True})
     np.testing.assert_array_equal(ds.dq, dq)
     np.testing.assert_array_equal(ds.ddq, ddq)
     assert ds.n_samples == t.size
@@ -148,7 +153,7 @@ def test_profile_units_signs_offsets_names_and_current(tmp_path):
             "slide": {"q": {"column": "S_mm", "unit": "mm"}, "tau": {"column": "S_force", "unit": "N", "sign": -1}},
         },
     }
-    ds = L.read_logs(tmp_path / "ctrl.csv", robot=rob, profile=prof)
+    ds = read_logs(tmp_path / "ctrl.csv", robot=rob, profile=prof)
     np.testing.assert_allclose(ds.t, t, atol=1e-12)
     np.testing.assert_allclose(ds.q, q, atol=1e-12)
     np.testing.assert_allclose(ds.tau, tau, atol=1e-10)
@@ -158,7 +163,7 @@ def test_profile_units_signs_offsets_names_and_current(tmp_path):
 def test_profile_file_and_time_windows(tmp_path, ur5, ur5_log):
     prof = tmp_path / "p.yaml"
     prof.write_text("log_profile: 1\nwindows: [[1.0, 4.0], [6.0, 11.0]]\nconditioning:\n  cutoff: 6.0\n  decimate: 4\n")
-    ds = L.load_dataset(ur5_log["path"], robot=ur5, profile=prof)
+    ds = load_dataset(ur5_log["path"], robot=ur5, profile=prof)
     assert len(ds.segments) == 2
     trim = 2.0 / 6.0
     assert ds.segments[0].t[0] == pytest.approx(1.0 + trim, abs=2e-3)
@@ -174,7 +179,7 @@ def test_files_keep_their_segments_no_derivative_across_a_join(tmp_path, ur5):
     a = to_csv(table(t, ur5.joint_names, q, q), tmp_path / "a.csv")
     # second run starts somewhere else entirely: a derivative across the join would explode
     b = to_csv(table(t + 100.0, ur5.joint_names, q + 1.0, q), tmp_path / "b.csv")
-    ds = L.load_dataset([a, b], robot=ur5, options={"cutoff": 6.0})
+    ds = load_dataset([a, b], robot=ur5, options={"cutoff": 6.0})
     assert [s.source for s in ds.segments] == [str(a), str(b)]
     assert np.abs(ds.ddq).max() < 1.05 * np.abs(ddq).max()
 
@@ -183,7 +188,7 @@ def test_gap_splits_segments_with_warning(tmp_path, ur5, ur5_log):
     df = pd.read_csv(ur5_log["path"])
     df = df.drop(index=range(5000, 5200))  # 0.2 s dropout
     path = to_csv(df, tmp_path / "gap.csv")
-    ds = L.load_dataset(path, robot=ur5, options={"cutoff": 6.0})
+    ds = load_dataset(path, robot=ur5, options={"cutoff": 6.0})
     assert len(ds.segments) == 2
     assert any("gap" in w for w in ds.warnings)
     assert ds.segments[0].t[-1] < 5.0 < 5.2 < ds.segments[1].t[0]
@@ -194,7 +199,7 @@ def test_irregular_sampling_is_resampled_and_said(tmp_path, ur5, ur5_log):
     df = pd.read_csv(ur5_log["path"])
     df["time"] = df["time"] + rng.uniform(-3e-4, 3e-4, len(df))
     path = to_csv(df, tmp_path / "jitter.csv")
-    ds = L.read_logs(path, robot=ur5)
+    ds = read_logs(path, robot=ur5)
     assert any("irregular sampling" in w and "resampled" in w for w in ds.warnings)
     assert np.ptp(np.diff(ds.t)) < 1e-9
 
@@ -205,14 +210,14 @@ def test_clipped_torques_flagged_and_dropped(tmp_path, ur5, ur5_log):
     lim = ur5.effort_limit[3]
     df[f"{j}.tau"] = np.clip(df[f"{j}.tau"] * 20.0, -lim, lim)
     path = to_csv(df, tmp_path / "clip.csv")
-    ds = L.load_dataset(path, robot=ur5, options={"cutoff": 6.0})
+    ds = load_dataset(path, robot=ur5, options={"cutoff": 6.0})
     assert any("torque limit" in w and j in w for w in ds.warnings)
     assert ds.info["counts"]["clipped"] > 0
     # what is kept is the unclipped torque (filtered): nothing of the plateau leaks in
     i = np.rint(ds.t * FS).astype(int)
     truth = 20.0 * ur5_log["tau"][i, 3]
     assert np.abs(ds.tau[:, 3] - truth).max() < 0.01 * lim
-    kept = L.load_dataset(path, robot=ur5, options={"cutoff": 6.0, "drop_clipped": False})
+    kept = load_dataset(path, robot=ur5, options={"cutoff": 6.0, "drop_clipped": False})
     assert kept.n_samples > ds.n_samples
 
 
@@ -224,8 +229,8 @@ def test_torque_in_wrong_unit_is_named(tmp_path, ur5, ur5_log):
     mnm, over = df.copy(), df.copy()
     mnm[f"{j}.tau"] *= 1000.0
     over[f"{j}.tau"] = over[f"{j}.tau"] / over[f"{j}.tau"].abs().max() * 1.5 * ur5.effort_limit[1]
-    w1 = L.read_logs(to_csv(mnm, tmp_path / "mnm.csv"), robot=ur5).warnings
-    w2 = L.read_logs(to_csv(over, tmp_path / "over.csv"), robot=ur5).warnings
+    w1 = read_logs(to_csv(mnm, tmp_path / "mnm.csv"), robot=ur5).warnings
+    w2 = read_logs(to_csv(over, tmp_path / "over.csv"), robot=ur5).warnings
     assert any(j in w and "wrong unit or scale (mN m" in w and "mnm.csv" in w for w in w1), w1
     assert any(j in w and "above its effort limit" in w for w in w2) and not any("wrong unit" in w for w in w2), w2
 
@@ -242,23 +247,23 @@ def test_period_averaging_per_segment_with_noise_variance(tmp_path, ur5):
         tau = 4.0 * q + sd * rng.standard_normal(q.shape)
         qn = q + 1e-5 * rng.standard_normal(q.shape)
         files.append(to_csv(table(t + 50.0 * k, ur5.joint_names, qn, tau), tmp_path / f"p{k}.csv"))
-    ds = L.load_dataset(files, robot=ur5, options={"period": period, "harmonics": ur5.n})
+    ds = load_dataset(files, robot=ur5, options={"period": period, "harmonics": ur5.n})
     assert len(ds.segments) == 2 and all(s.n_samples == 2000 for s in ds.segments)
     assert ds.info["periods_averaged"] == 10
     # pooled over 2 x 2000 samples x 4 degrees of freedom: a few per cent
     np.testing.assert_allclose(ds.noise_var, sd**2, rtol=0.05)
     np.testing.assert_allclose(ds.tau, 4.0 * ds.q, atol=5 * sd.max() / np.sqrt(5))
     # a wrong period is noticed
-    bad = L.load_dataset(files, robot=ur5, options={"period": 1.5, "harmonics": ur5.n})
+    bad = load_dataset(files, robot=ur5, options={"period": 1.5, "harmonics": ur5.n})
     assert any("period" in w and "periodic" in w for w in bad.warnings)
 
 
 def test_slow_samples_flagged(ur5, ur5_log):
-    ds = L.load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "slow_velocity": 0.05, "reversal_margin": 0.0})
+    ds = load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "slow_velocity": 0.05, "reversal_margin": 0.0})
     np.testing.assert_array_equal(ds.slow, np.abs(ds.dq) < 0.05)
     assert ds.slow.any() and not ds.slow.all()
     # with a margin, samples near a velocity reversal are flagged too, and only those
-    wide = L.load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "slow_velocity": 0.05, "reversal_margin": 0.05})
+    wide = load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "slow_velocity": 0.05, "reversal_margin": 0.05})
     t, dq = wide.t, wide.dq
     for k in range(ur5.n):
         rev_t = t[np.flatnonzero(np.diff(np.sign(dq[:, k])) != 0)]
@@ -273,27 +278,27 @@ def test_delay_estimated_and_removed(tmp_path, ur5, ur5_log):
     delay = 0.004
     late = np.stack([np.interp(t - delay, t, model[:, k]) for k in range(ur5.n)], 1)
     path = to_csv(table(t, ur5.joint_names, q, late), tmp_path / "late.csv")
-    ds = L.load_dataset(path, robot=ur5, options={"cutoff": 6.0})
+    ds = load_dataset(path, robot=ur5, options={"cutoff": 6.0})
     pred = 3.0 * ds.q + 0.2 * ds.ddq + 1.0  # a preliminary fit's prediction
-    est = L.estimate_dataset_delay(ds, pred, max_delay=0.02)
+    est = estimate_dataset_delay(ds, pred, max_delay=0.02)
     np.testing.assert_allclose(est, delay, atol=1e-4)
-    fixed = L.apply_delay(ds, est)
+    fixed = apply_delay(ds, est)
     assert np.abs(fixed.tau - (3.0 * fixed.q + 0.2 * fixed.ddq + 1.0)).max() < 0.2 * np.abs(ds.tau - pred).max()
     # or remove a known delay while loading
-    ds2 = L.load_dataset(path, robot=ur5, options={"cutoff": 6.0, "delay": delay})
+    ds2 = load_dataset(path, robot=ur5, options={"cutoff": 6.0, "delay": delay})
     assert np.abs(ds2.tau - (3.0 * ds2.q + 0.2 * ds2.ddq + 1.0)).max() < 0.2 * np.abs(ds.tau - pred).max()
 
 
 def test_missing_cutoff_is_an_error_naming_the_options(ur5, ur5_log):
     with pytest.raises(DataError, match="cutoff"):
-        L.load_dataset(ur5_log["path"], robot=ur5)
+        load_dataset(ur5_log["path"], robot=ur5)
 
 
 def test_write_samples_round_trip(tmp_path, ur5, ur5_log):
-    ds = L.load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "decimate": 5, "windows": [[0, 5], [6, 12]]})
+    ds = load_dataset(ur5_log["path"], robot=ur5, options={"cutoff": 6.0, "decimate": 5, "windows": [[0, 5], [6, 12]]})
     for name in ("clean.csv", "clean.parquet"):
-        L.write_samples(tmp_path / name, ds)
-        back = L.read_logs(tmp_path / name, robot=ur5)
+        write_samples(tmp_path / name, ds)
+        back = read_logs(tmp_path / name, robot=ur5)
         assert len(back.segments) == 2  # the segment boundary is a time gap
         np.testing.assert_allclose(back.q, ds.q, atol=1e-15)
         np.testing.assert_allclose(back.dq, ds.dq, atol=1e-15)
@@ -345,7 +350,7 @@ def test_every_bad_input_raises_data_error_naming_the_place(tmp_path, ur5):
         path = to_csv(df, tmp_path / f"{name.replace(' ', '_')}.csv")
         with pytest.raises(DataError, match=pattern) as err:
             opts = None if prof and "conditioning" in prof else {"cutoff": 20.0}
-            L.load_dataset(path, robot=ur5, profile=prof, options=opts)
+            load_dataset(path, robot=ur5, profile=prof, options=opts)
         assert str(path) in str(err.value) or (prof is not None and "profile" in str(err.value)) or "Nyquist" in str(err.value), name
 
 
@@ -373,15 +378,15 @@ def test_not_a_table_and_empty_file(tmp_path):
     junk = tmp_path / "junk.parquet"
     junk.write_bytes(b"\x00\x01not parquet at all")
     with pytest.raises(DataError, match="junk.parquet"):
-        L.read_logs(junk)
+        read_logs(junk)
     empty = tmp_path / "empty.csv"
     empty.write_text("")
     with pytest.raises(DataError, match="empty"):
-        L.read_logs(empty)
+        read_logs(empty)
     with pytest.raises(DataError, match="not found"):
-        L.read_logs(tmp_path / "nope.csv")
+        read_logs(tmp_path / "nope.csv")
     with pytest.raises(DataError, match="unknown log type"):
-        L.read_logs(junk.with_suffix(".xlsx").touch() or junk.with_suffix(".xlsx"))
+        read_logs(junk.with_suffix(".xlsx").touch() or junk.with_suffix(".xlsx"))
 
 
 def test_joints_differ_between_files(tmp_path):
@@ -390,7 +395,7 @@ def test_joints_differ_between_files(tmp_path):
     a = to_csv(table(t, ["a", "b"], z, z), tmp_path / "a.csv")
     b = to_csv(table(t, ["a", "c"], z, z), tmp_path / "b.csv")
     with pytest.raises(DataError, match="differ"):
-        L.read_logs([a, b])
+        read_logs([a, b])
 
 
 # --------------------------------------------------------------------------------------------
@@ -441,7 +446,7 @@ def test_malformed_tables_raise_only_project_errors(header, rows, sorted_time):
     with tempfile.TemporaryDirectory() as d:
         path = Path(d) / "t.csv"
         path.write_text(text)
-        for call in (lambda: L.read_logs(path), lambda: L.load_dataset(path, options={"cutoff": 50.0})):
+        for call in (lambda: read_logs(path), lambda: load_dataset(path, options={"cutoff": 50.0})):
             try:
                 ds = call()
             except IdentError as exc:
@@ -475,14 +480,14 @@ def test_example_profile_reads_its_controller_export(tmp_path):
             exp[f"{a}_Nm"] = sign.get(j, 1.0) * ref[f"{j}.tau"]
     path = to_csv(pd.DataFrame(exp), tmp_path / "cell_trace.csv")
     prof = demo / "examples" / "profile.yaml"
-    raw = L.read_logs(path, robot=robot, profile=prof)
+    raw = read_logs(path, robot=robot, profile=prof)
     sel = (ref["time"] >= 0.5 - 1e-9) & (ref["time"] <= 29.9 + 1e-9)
     np.testing.assert_allclose(raw.q, ref.loc[sel, [f"{j}.q" for j in robot.joint_names]].to_numpy(), atol=1e-12)
     np.testing.assert_allclose(raw.tau, ref.loc[sel, [f"{j}.tau" for j in robot.joint_names]].to_numpy(), atol=1e-9)
-    ds = L.load_dataset(path, robot=robot, profile=prof)
+    ds = load_dataset(path, robot=robot, profile=prof)
     assert ds.info["cutoff"] == pytest.approx(2.5) and ds.segments[0].dt == pytest.approx(0.01)
     # `ident fit --profile` reads the export like the column-convention log with the same settings
-    from ident.paramfile import load_parameters
+    from ident.handover.paramfile import load_parameters
 
     common = ["--method", "ols", "--quiet"]
     assert main(["fit", str(demo / "sprout6.urdf"), str(path), "--profile", str(prof), "--out", str(tmp_path / "a.yaml")] + common) == 0
@@ -510,8 +515,8 @@ def test_preliminary_delay_from_a_fit_and_cli_report(tmp_path, capsys):
     delay = 0.006
     late = np.stack([np.interp(t - delay, t, tau[:, k]) for k in range(robot.n)], 1) + 0.01 * rng.standard_normal(tau.shape)
     path = to_csv(table(t, robot.joint_names, q + 1e-5 * rng.standard_normal(q.shape), late), tmp_path / "late.csv")
-    ds = L.load_dataset(path, robot=robot, options={"max_frequency": 0.5, "decimate": 2})
-    est = L.preliminary_delay(ds, robot, terms=("fv",))
+    ds = load_dataset(path, robot=robot, options={"max_frequency": 0.5, "decimate": 2})
+    est = preliminary_delay(ds, robot, terms=("fv",))
     np.testing.assert_allclose(est, delay, atol=1e-3)
     assert main(["logs", str(path), "--robot", str(demo / "sprout6.urdf"), "--max-frequency", "0.5",
                  "--decimate", "2", "--remove-delay", "--delay-terms", "fv", "--json"]) == 0
@@ -526,7 +531,7 @@ def test_default_delay_terms_do_not_mistake_rotor_inertia_for_delay():
     # (fv,fc,ia) at most 8.5 ms in magnitude; fv,fc alone -41 ms on flange_roll.
     demo = Path(__file__).resolve().parent.parent / "datasets_demo"
     robot = ident.load_robot(demo / "sprout6.urdf")
-    ds = L.load_dataset(demo / "sprout6_excite.csv", robot=robot, options={"cutoff": 5.0})
+    ds = load_dataset(demo / "sprout6_excite.csv", robot=robot, options={"cutoff": 5.0})
     default = ident.preliminary_delay(ds, robot)
     assert np.max(np.abs(default)) < 0.010, default
     assert np.max(np.abs(ident.preliminary_delay(ds, robot, terms=("fv", "fc")))) > 2 * np.max(np.abs(default))
@@ -535,7 +540,7 @@ def test_default_delay_terms_do_not_mistake_rotor_inertia_for_delay():
 def test_default_conditioning_keeps_friction_estimates_unbiased(tmp_path):
     # Coulomb steps are smeared by the parallel low-pass; the default reversal margin leaves those
     # samples out of the Coulomb/viscous rows. Truth: fv = 0.5, fc = 0.3 on every joint.
-    from ident.estimate import fit
+    from ident.estimation.estimate import fit
 
     demo = Path(__file__).resolve().parent.parent / "datasets_demo"
     robot = ident.load_robot(demo / "sprout6.urdf")
@@ -550,7 +555,7 @@ def test_default_conditioning_keeps_friction_estimates_unbiased(tmp_path):
     path = to_csv(table(t, robot.joint_names, q, tau), tmp_path / "coulomb.csv")
     est = {}
     for margin in (None, 0.0):
-        ds = L.load_dataset(path, robot=robot, options={"max_frequency": 0.5, "reversal_margin": margin})
+        ds = load_dataset(path, robot=robot, options={"max_frequency": 0.5, "reversal_margin": margin})
         est[margin] = fit(robot, ds, "ols", ("fv", "fc")).joint_params
     # at the default 5x cutoff what is left of the smear still costs about 10 % (measured: fc +8 %,
     # fv -8 to -12 %); a 10x cutoff brings both within about 3 %
@@ -572,10 +577,10 @@ _TREES = st.recursive(_LEAVES, lambda inner: st.one_of(st.lists(inner, max_size=
 @given(profile=st.dictionaries(st.sampled_from(_KEYS[:9]), _TREES, max_size=5))
 def test_malformed_profiles_raise_only_project_errors(profile):
     try:
-        prof = L.load_profile(profile)
+        prof = load_profile(profile)
     except IdentError:
         return
-    assert isinstance(prof, L.LogProfile)
+    assert isinstance(prof, LogProfile)
 
 
 @pytest.mark.parametrize("profile", [
@@ -585,12 +590,12 @@ def test_malformed_profiles_raise_only_project_errors(profile):
 ])
 def test_profiles_of_the_wrong_shape_are_refused(profile):
     with pytest.raises(DataError, match="profile"):
-        L.load_profile(profile)
+        load_profile(profile)
 
 
 def test_excitation_file_sets_period_and_default_cutoff(tmp_path, capsys):
     demo = Path(__file__).resolve().parent.parent / "datasets_demo"
-    opts = L.excitation_options(demo / "examples" / "excite.yaml")
+    opts = excitation_options(demo / "examples" / "excite.yaml")
     assert opts == {"period": 10.0, "harmonics": 5}
     log = demo / "sprout6_excite.csv"
     assert main(["logs", str(log), "--excitation", str(demo / "examples" / "excite.yaml"), "--no-average", "--json"]) == 0
@@ -599,4 +604,4 @@ def test_excitation_file_sets_period_and_default_cutoff(tmp_path, capsys):
     bad = tmp_path / "bad.yaml"
     bad.write_text("period: 10\n")
     with pytest.raises(DataError, match="harmonics"):
-        L.excitation_options(bad)
+        excitation_options(bad)

@@ -10,12 +10,12 @@ import numpy as np
 import pinocchio as pin
 import pytest
 import yaml
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
+from ident.arm.parameters import FORMAT, BaseTable, parameter_set_from_vector
 from ident.errors import DataError, IdentError
-from ident.paramfile import FORMAT, BaseTable, load_parameters, parameter_set_from_vector, save_parameters
-
-from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
+from ident.handover.paramfile import load_parameters, save_parameters
 
 
 @pytest.fixture(scope="module")

@@ -14,15 +14,15 @@ import numpy as np
 import pandas as pd
 import pinocchio as pin
 import pytest
-
-import ident
-from ident.cli import main
-from ident.errors import DataError, IdentError
-from ident.paramfile import parameter_set_from_vector, save_parameters
-from ident.payload import identify_payload, load_payload
-
 from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 from test_estimate import sine_trajectory
+
+import ident
+from ident.arm.parameters import parameter_set_from_vector
+from ident.cli import main
+from ident.errors import DataError, IdentError
+from ident.estimation.payload import identify_payload, load_payload
+from ident.handover.paramfile import save_parameters
 
 # Invented demo payload: a 1.5 kg gripper-and-part, COM ahead of the flange.
 PAYLOAD_MASS = 1.5

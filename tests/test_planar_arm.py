@@ -9,9 +9,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import PANDA, PANDA_FINGERS_LOCKED, erd_path
 
 import ident
-from conftest import PANDA, PANDA_FINGERS_LOCKED, erd_path
 
 L1, L2, M1, M2, G = 0.45, 0.35, 2.5, 1.2, 9.81
 

@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 
 import ident
+from ident.data.load import load_dataset
 from ident.errors import IdentError
-from ident.logs import load_dataset
-from ident.paramfile import load_parameters
-from ident.report import render_report, write_report
-from ident.validate import validate_dataset
+from ident.handover.check import validate_dataset
+from ident.handover.paramfile import load_parameters
+from ident.handover.report import render_report, write_report
 
 DEMO = Path(__file__).resolve().parents[1] / "datasets_demo"
 VOID = {"meta", "img", "br", "hr", "link", "input", "col", "area", "base", "source", "wbr"}
@@ -81,7 +81,7 @@ def check_html(text: str) -> StrictChecker:
 
 
 def test_report_of_a_fit_with_held_out_check(tmp_path, demo):
-    from ident.estimate import fit
+    from ident.estimation.estimate import fit
 
     robot, truth, held, fitd = demo
     with warnings.catch_warnings():

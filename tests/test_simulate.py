@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import UR5, erd_path
 
 import ident
+from ident.arm.parameters import parameter_set_from_vector
 from ident.cli import main
 from ident.errors import IdentError
-from ident.paramfile import parameter_set_from_vector, save_parameters
-from ident.simulate import SimulationSettings, read_trajectory, simulate
-
-from conftest import UR5, erd_path
+from ident.handover.paramfile import save_parameters
+from ident.motion.simulate import SimulationSettings, read_trajectory, simulate
 
 TERMS = ("fv", "fc", "ia")
 
@@ -146,7 +146,7 @@ def test_cli_writes_a_log_the_log_reader_accepts(tmp_path, ur5, capsys):
                    "--log-rate", "200", "--torque-noise", "0.05", "--seed", "3", "--json"])
     assert status == 0
     assert '"samples": 100' in capsys.readouterr().out
-    raw = ident.logs.read_logs([out], robot=ur5)
+    raw = ident.data.load.read_logs([out], robot=ur5)
     assert raw.n_samples == 100 and raw.joint_names == ur5.joint_names
     # velocities derived from the reference when the trajectory lacks them
     t, q, dq, ddq = read_trajectory(traj, ur5)

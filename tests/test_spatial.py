@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 import ident
-from ident.spatial import (
+from ident.arm.spatial import (
     check_physical,
     from_pseudo_inertia,
     from_vector,

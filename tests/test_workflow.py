@@ -9,11 +9,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import UR5, erd_path
 
 import ident
-from ident.paramfile import load_parameters, parameter_set_from_vector, save_parameters
-
-from conftest import UR5, erd_path
+from ident.arm.parameters import parameter_set_from_vector
+from ident.handover.paramfile import load_parameters, save_parameters
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "datasets_demo"
@@ -46,8 +46,9 @@ def test_demo_fit_predicts_held_out_torque_at_the_noise_level(demo_run):
     # still stay within 1.1 sigma, i.e. the model error adds less than half the noise in quadrature
     # (measured: 1.00-1.04 sigma, the same as the true parameters give).
     import pandas as pd
-    from ident.logs import load_dataset
-    from ident.validate import validate_dataset
+
+    from ident.data.load import load_dataset
+    from ident.handover.check import validate_dataset
 
     held = load_dataset([DEMO / "sprout6_heldout.csv"], robot=robot, options={"cutoff": 10.0})
     raw = pd.read_csv(DEMO / "sprout6_heldout.csv")

@@ -8,10 +8,11 @@ import numpy as np
 import pytest
 
 import ident
+from ident.arm.parameters import parameter_set_from_vector
 from ident.cli import main
 from ident.errors import IdentError
-from ident.paramfile import load_parameters, parameter_set_from_vector
-from ident.validate import link_checks, validate
+from ident.handover.check import link_checks, validate
+from ident.handover.paramfile import load_parameters
 
 DEMO = Path(__file__).resolve().parents[1] / "datasets_demo"
 

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ..paramfile import load_parameters
-from ..validate import validate_dataset
+from ..handover.check import validate_dataset
+from ..handover.paramfile import load_parameters
 from .common import add_robot_arguments, print_json, robot_from_args
 from .logs import add_log_arguments, dataset_from_args
 
@@ -49,7 +49,7 @@ def run(args) -> int:
     data = dataset_from_args(args, robot)
     val = validate_dataset(robot, ps, data)
     if args.report:
-        from ..report import write_report
+        from ..handover.report import write_report
 
         write_report(args.report, robot, ps, validation=val, validation_data=data, progress=not (args.quiet or args.json))
     if args.json:

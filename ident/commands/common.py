@@ -8,17 +8,10 @@ import sys
 
 import numpy as np
 
+from ..arm.loader import load_robot
+from ..arm.model import Robot, parse_terms
 from ..errors import IdentError
-from ..model import Robot, load_robot, parse_terms
-
-SAFETY_CAUTIONS = """\
-SAFETY: moving a real robot can hurt people.
-  - Run the motion at reduced speed first (speed override), then at full speed.
-  - Clear the workspace; keep people out of the robot's reach while it moves.
-  - Keep an emergency stop within reach of the operator at all times.
-  - Keep the robot's own safety limits and functions (joint, speed, force limits, safety zones) active.
-  - Follow local regulations, the published robot-safety standards (for example ISO 10218) and the
-    robot maker's manual; they take precedence over anything this tool computes."""
+from ..text import SAFETY_CAUTIONS, format_table  # noqa: F401  (the commands' shared text)
 
 
 def add_robot_arguments(parser: argparse.ArgumentParser, positional: bool = True) -> None:
@@ -95,15 +88,3 @@ def _jsonable(x):
     raise TypeError(f"not JSON serializable: {type(x).__name__}")
 
 
-def format_table(headers: list[str], rows: list[list], align: str | None = None) -> str:
-    """Plain-text table with a header rule; `align` is a string of 'l'/'r' per column."""
-    cells = [[str(c) for c in r] for r in rows]
-    widths = [max([len(h)] + [len(r[i]) for r in cells]) for i, h in enumerate(headers)]
-    align = align or "l" * len(headers)
-
-    def fmt(r):
-        return "  ".join(c.ljust(w) if a == "l" else c.rjust(w) for c, w, a in zip(r, widths, align)).rstrip()
-
-    lines = [fmt(headers), "  ".join("-" * w for w in widths)]
-    lines += [fmt(r) for r in cells]
-    return "\n".join(lines)

@@ -8,15 +8,15 @@ import warnings
 from importlib import resources
 from pathlib import Path
 
+from ..arm.loader import load_robot
+from ..data.load import load_dataset
 from ..errors import IdentError
-from ..estimate import fit
-from ..export import export_urdf
-from ..logs import load_dataset
-from ..model import load_robot
-from ..paramfile import load_parameters, save_parameters
+from ..estimation.estimate import fit
+from ..handover.check import validate_dataset
+from ..handover.export import export_urdf
+from ..handover.paramfile import load_parameters, save_parameters
+from ..handover.report import write_report
 from ..progress import Progress
-from ..report import write_report
-from ..validate import validate_dataset
 from .common import print_json
 
 EXAMPLE = """\

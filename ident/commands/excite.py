@@ -5,9 +5,12 @@ from __future__ import annotations
 import argparse
 import sys
 
+from ..data.load import load_dataset
 from ..errors import IdentError
-from ..excitation import design_excitation, load_excitation_config, load_trajectory, summary_text, verify_trajectory, write_excitation
-from ..logs import load_dataset
+from ..motion.config import load_excitation_config
+from ..motion.design import design_excitation, verify_trajectory
+from ..motion.fourier import load_trajectory
+from ..motion.outputs import summary_text, write_excitation
 from .common import SAFETY_CAUTIONS, add_robot_arguments, robot_from_args
 from .logs import add_log_arguments, options_from_args
 

@@ -6,8 +6,8 @@ import argparse
 from pathlib import Path
 
 from ..errors import IdentError
-from ..export import export_parameters, export_urdf
-from ..paramfile import load_parameters
+from ..handover.export import export_parameters, export_urdf
+from ..handover.paramfile import load_parameters
 from .common import add_robot_arguments, print_json, robot_from_args
 
 EXAMPLE = """\

@@ -9,8 +9,9 @@ import warnings
 import numpy as np
 
 from ..errors import IdentError
-from ..estimate import METHODS, REGULARIZATION, Bounds, fit
-from ..paramfile import load_parameters, save_parameters
+from ..estimation.estimate import REGULARIZATION, fit
+from ..estimation.result import METHODS, Bounds
+from ..handover.paramfile import load_parameters, save_parameters
 from ..progress import Progress
 from .common import add_robot_arguments, add_terms_argument, print_json, robot_from_args, terms_from_args
 from .logs import add_log_arguments, dataset_from_args
@@ -71,7 +72,7 @@ def _floats(text: str, count: int, option: str) -> np.ndarray:
 
 
 def bounds_from_args(args) -> Bounds:
-    """The --mass, --com and --total-mass options as :class:`ident.estimate.Bounds`."""
+    """The --mass, --com and --total-mass options as :class:`ident.estimation.result.Bounds`."""
     b = Bounds(total_mass=args.total_mass)
     for item in args.mass:
         link, sep, rng = item.partition("=")

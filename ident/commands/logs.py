@@ -5,10 +5,16 @@ from __future__ import annotations
 
 import argparse
 
-from .. import logs as L
-from ..conditioning import CUTOFF_RATIO
+from ..arm.model import parse_terms
+from ..data.conditioning import CUTOFF_RATIO
+from ..data.dataset import Dataset
+from ..data.delay import apply_delay
+from ..data.load import load_dataset, read_logs
+from ..data.options import LogOptions, excitation_options
+from ..data.profile import load_profile
+from ..data.samples import describe, write_samples
 from ..errors import IdentError
-from ..model import parse_terms
+from ..estimation.delay import preliminary_delay
 from .common import add_robot_arguments, format_table, print_json, robot_from_args
 
 EPILOG = """\
@@ -27,7 +33,7 @@ def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     """Add the log-loading options (--profile and the conditioning settings) to `parser`.
 
     Read them back with :func:`options_from_args` / :func:`dataset_from_args`. Every option maps to
-    a :class:`ident.logs.LogOptions` field; unset options leave the profile's value.
+    a :class:`ident.data.options.LogOptions` field; unset options leave the profile's value.
     """
     g = parser.add_argument_group("log loading and conditioning")
     g.add_argument("--profile", metavar="YAML", help="log profile: columns/topics, units, signs, offsets, windows (default: the column convention)")
@@ -71,7 +77,7 @@ def options_from_args(args: argparse.Namespace) -> dict:
     }
     opts = {k: v for k, v in opts.items() if v is not None}
     if getattr(args, "excitation", None):
-        for key, val in L.excitation_options(args.excitation).items():
+        for key, val in excitation_options(args.excitation).items():
             opts.setdefault(key, val)  # explicit --period/--harmonics win
     if args.no_average:
         opts["average"] = False
@@ -101,9 +107,9 @@ def options_from_args(args: argparse.Namespace) -> dict:
     return {k: v for k, v in opts.items() if v is not None}
 
 
-def dataset_from_args(args: argparse.Namespace, robot=None) -> L.Dataset:
+def dataset_from_args(args: argparse.Namespace, robot=None) -> Dataset:
     """Load and condition the logs named by ``args.logs`` with the options of :func:`add_log_arguments`."""
-    return L.load_dataset(args.logs, robot=robot, profile=args.profile, options=options_from_args(args))
+    return load_dataset(args.logs, robot=robot, profile=args.profile, options=options_from_args(args))
 
 
 def add_parser(sub) -> None:
@@ -131,28 +137,28 @@ def add_parser(sub) -> None:
 def run(args: argparse.Namespace) -> int:
     robot = robot_from_args(args) if args.robot else None
     opts = options_from_args(args)
-    prof = L.load_profile(args.profile)
-    resolved = L.LogOptions.from_mapping(prof.conditioning, f"{prof.source}: conditioning").updated(opts)
+    prof = load_profile(args.profile)
+    resolved = LogOptions.from_mapping(prof.conditioning, f"{prof.source}: conditioning").updated(opts)
     needs_cutoff = resolved.resolved_cutoff() is None and not (resolved.logged_velocity and resolved.logged_acceleration)
     if needs_cutoff:
-        ds = L.read_logs(args.logs, robot=robot, profile=prof, options=opts)
+        ds = read_logs(args.logs, robot=robot, profile=prof, options=opts)
     else:
-        ds = L.load_dataset(args.logs, robot=robot, profile=prof, options=opts)
+        ds = load_dataset(args.logs, robot=robot, profile=prof, options=opts)
     delay = None
     if args.estimate_delay or args.remove_delay:
         if robot is None or needs_cutoff:
             raise IdentError("--estimate-delay: needs --robot and conditioned samples (a cutoff: --cutoff, --max-frequency or --period with --harmonics)")
-        delay = L.preliminary_delay(ds, robot, parse_terms(args.delay_terms))
+        delay = preliminary_delay(ds, robot, parse_terms(args.delay_terms))
         if args.remove_delay:
-            ds = L.apply_delay(ds, delay)
-    summary = L.describe(ds)
+            ds = apply_delay(ds, delay)
+    summary = describe(ds)
     if delay is not None:
         summary["delay"] = {j: float(d) for j, d in zip(ds.joint_names, delay)}
         summary["delay_removed"] = bool(args.remove_delay)
     if args.out:
         if needs_cutoff:
             raise IdentError("--out: the samples are not conditioned (no cutoff known); give --cutoff, --max-frequency or --period with --harmonics")
-        L.write_samples(args.out, ds)
+        write_samples(args.out, ds)
     if args.json:
         print_json(summary)
         return 0
@@ -160,7 +166,7 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _text(ds: L.Dataset, s: dict, robot, raw_only: bool) -> str:
+def _text(ds: Dataset, s: dict, robot, raw_only: bool) -> str:
     lines = []
     lines.append(f"joints ({len(s['joints'])}): {', '.join(s['joints'])}" + (f"  [model {robot.name}]" if robot is not None else ""))
     rows = []

@@ -6,8 +6,8 @@ import argparse
 
 import numpy as np
 
-from ..base import base_parameters
-from ..model import JOINT_TERMS, PRISMATIC, Robot
+from ..arm.base import base_parameters
+from ..arm.model import JOINT_TERMS, PRISMATIC, Robot
 from .common import add_robot_arguments, add_terms_argument, format_table, print_json, robot_from_args, terms_from_args
 
 EXAMPLE = """\

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import argparse
 
-from ..paramfile import load_parameters
-from ..payload import identify_payload, save_payload
+from ..estimation.payload import identify_payload, save_payload
+from ..handover.paramfile import load_parameters
 from ..progress import Progress
 from .common import add_robot_arguments, print_json, robot_from_args
 from .logs import add_log_arguments, dataset_from_args

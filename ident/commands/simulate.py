@@ -7,8 +7,8 @@ import argparse
 import numpy as np
 
 from ..errors import IdentError
-from ..paramfile import load_parameters
-from ..simulate import SimulationSettings, read_trajectory, simulate, write_log
+from ..handover.paramfile import load_parameters
+from ..motion.simulate import SimulationSettings, read_trajectory, simulate, write_log
 from .common import add_robot_arguments, format_table, print_json, robot_from_args
 
 EXAMPLE = """\

@@ -1,0 +1,240 @@
+"""From raw samples to conditioned segments: windows, gaps, resampling, then per segment the
+parallel zero-phase low-pass on positions and torques, derivatives of the filtered positions, edge
+trim, clipped-torque removal, decimation, optional averaging over excitation periods, and
+``Segment.slow`` flags where sign(dq) is unreliable for the Coulomb term.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import DataError
+from . import conditioning as cond
+from .dataset import Segment
+from .options import LogOptions
+from .rawlog import RawLog
+
+#: A torque within this fraction of its saturation level counts as clipped.
+CLIP_FRACTION = 0.999
+
+
+def uniform_pieces(raw: RawLog, opts: LogOptions, warnings: list[str], counts: dict) -> list[Segment]:
+    """Apply windows, split at gaps, resample irregular pieces: raw, uniformly sampled segments."""
+    t = raw.t
+    idx_sets = []
+    if opts.windows:
+        t0 = t[0]
+        for a, b in opts.windows:
+            eps = 1e-9 * max(1.0, abs(b))  # unit conversions (ms -> s) must not move a bound sample out
+            sel = np.flatnonzero((t - t0 >= a - eps) & (t - t0 <= b + eps))
+            if sel.size < 2:
+                warnings.append(f"{raw.source}: window [{a:g}, {b:g}] s holds fewer than 2 samples (file lasts {t[-1] - t0:.6g} s); skipped")
+                continue
+            idx_sets.append((int(sel[0]), int(sel[-1]) + 1))
+        counts["outside_windows"] += raw.t.shape[0] - sum(b - a for a, b in idx_sets)
+        if not idx_sets:
+            raise DataError(f"{raw.source}: no samples inside the time windows {opts.windows}")
+    else:
+        idx_sets.append((0, t.shape[0]))
+    out = []
+    nominal_all = float(np.median(np.diff(t)))
+    for a, b in idx_sets:
+        d = np.diff(t[a:b])
+        gaps = np.flatnonzero(d > opts.max_gap * nominal_all)
+        if gaps.size:
+            warnings.append(
+                f"{raw.source}: {gaps.size} gap(s) longer than {opts.max_gap:g} sample steps (longest {d[gaps].max():.4g} s at t = {t[a + gaps[0]]:.6g} s); data split into segments"
+            )
+        edges = [a] + [a + int(g) + 1 for g in gaps] + [b]
+        for s, e in zip(edges[:-1], edges[1:]):
+            if e - s < 2:
+                counts["short"] += e - s
+                continue
+            ts = t[s:e]
+            seg = Segment(raw.source, ts, raw.q[s:e], None if raw.dq is None else raw.dq[s:e],
+                          None if raw.ddq is None else raw.ddq[s:e], raw.tau[s:e])
+            dts = np.diff(ts)
+            step = float(np.median(dts))
+            dev = float(np.max(np.abs(dts - step))) / step
+            if dev > opts.jitter:
+                seg = _resample(seg, step)
+                warnings.append(
+                    f"{raw.source}: irregular sampling (step varies by up to {100 * dev:.3g} % around {step:.6g} s) from t = {ts[0]:.6g} s; resampled to a uniform grid by linear interpolation"
+                )
+            out.append(seg)
+    return out
+
+
+def _resample(seg: Segment, step: float) -> Segment:
+    m = int(np.floor((seg.t[-1] - seg.t[0]) / step + 1e-9)) + 1
+    tn = seg.t[0] + step * np.arange(m)
+
+    def rs(x):
+        if x is None:
+            return None
+        return np.stack([np.interp(tn, seg.t, x[:, k]) for k in range(x.shape[1])], axis=1)
+
+    return Segment(seg.source, tn, rs(seg.q), rs(seg.dq), rs(seg.ddq), rs(seg.tau))
+
+
+def _dilate(mask: np.ndarray, r: int) -> np.ndarray:
+    """(m,) bool: true within `r` samples of a true entry of `mask` (running sum, O(m) for any r)."""
+    c = np.concatenate([[0], np.cumsum(mask, dtype=np.int64)])
+    i = np.arange(mask.shape[0])
+    return (c[np.minimum(i + r + 1, mask.shape[0])] - c[np.maximum(i - r, 0)]) > 0
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """[start, end) index runs where `mask` is true."""
+    if not mask.any():
+        return []
+    d = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    return list(zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1)))
+
+
+def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff: float | None, joint_names, warnings, counts, noise):
+    """Filter, differentiate, drop clipped samples and decimate one uniform segment -> list of segments."""
+    m, n = seg.q.shape
+    dt = float(seg.t[1] - seg.t[0])
+    fs = 1.0 / dt
+    where = f"{seg.source} (t = {seg.t[0]:.6g}..{seg.t[-1]:.6g} s)"
+    if cutoff and cutoff >= 0.5 * fs:
+        # a controller logs at tens of Hz or more: a sample step of a second or longer means ms read as s
+        hint = f" (a {dt:g} s sample step: time in ms? set time.unit in a log profile)" if dt >= 0.5 else ""
+        raise DataError(f"cutoff: {cutoff:g} Hz is not below the Nyquist frequency {0.5 * fs:g} Hz of {where}{hint}")
+    if opts.decimate > 1:
+        try:  # the low-pass is the anti-alias filter: refuse a factor that would alias
+            cond.decimate(seg.t[:1], opts.decimate, fs, cutoff)
+        except DataError as exc:
+            raise DataError(f"{where}: {exc}") from None
+    tau = seg.tau
+    # clipped torques: flagged on the raw channel, where the saturation is exact
+    clipped = np.zeros(m, dtype=bool)
+    if opts.drop_clipped:
+        for k in range(n):
+            lim = limit[k]
+            if np.isfinite(lim):
+                a = np.abs(tau[:, k])
+                if a.max() <= lim * (2.0 - CLIP_FRACTION):
+                    hit = a >= CLIP_FRACTION * lim
+                    if hit.any():
+                        warnings.append(f"{where}: {int(hit.sum())} sample(s) of joint '{joint_names[k]}' at its torque limit {lim:.4g}: dropped")
+                        clipped |= hit
+    if opts.delay is not None and np.any(np.asarray(opts.delay) != 0):
+        d = np.broadcast_to(np.asarray(opts.delay, float), (n,))
+        tau, valid = cond.shift(seg.t, tau, d)
+        clipped |= ~valid
+        counts["delay_edges"] += int((~valid).sum())
+    q, dq_log, ddq_log = seg.q, seg.dq, seg.ddq
+    periodic = False
+    if opts.period and opts.average:
+        L = opts.period * fs
+        Li = int(round(L))
+        if abs(L - Li) > 1e-3 * max(1.0, L) or Li < 4:
+            raise DataError(f"period: {opts.period:g} s is not a whole number of samples at {fs:g} Hz ({L:.6g}); resample or fix the period")
+        P = m // Li
+        if P < 2:
+            warnings.append(f"{where}: shorter than two periods of {opts.period:g} s; segment skipped for period averaging")
+            counts["short"] += m
+            return []
+        keep_blocks = [p for p in range(P) if not clipped[p * Li : (p + 1) * Li].any()]
+        if len(keep_blocks) < 2:
+            raise DataError(f"{where}: fewer than two periods free of clipped torque; cannot average")
+        counts["clipped"] += int(clipped[: P * Li].sum())
+        counts["partial_period"] += m - P * Li
+        counts["averaged_out"] += (len(keep_blocks) - 1) * Li
+
+        def blocks(x):
+            return None if x is None else np.concatenate([x[p * Li : (p + 1) * Li] for p in keep_blocks])
+
+        tau_mean, var_tau, Pk = cond.period_average(blocks(tau), Li)
+        q_mean, var_q, _ = cond.period_average(blocks(q), Li)
+        spread = np.ptp(q_mean, axis=0)
+        bad = [joint_names[k] for k in range(n) if np.sqrt(var_q[k]) > 0.01 * max(spread[k], 1e-9)]
+        if bad:
+            warnings.append(f"{where}: positions of {', '.join(bad)} differ between periods by more than 1 % of their range: is the period {opts.period:g} s right and the data periodic?")
+        noise.append((var_tau, Pk - 1, var_q))
+        dq_log = None if dq_log is None else cond.period_average(blocks(dq_log), Li)[0]
+        ddq_log = None if ddq_log is None else cond.period_average(blocks(ddq_log), Li)[0]
+        q, tau = q_mean, tau_mean
+        t = seg.t[0] + dt * np.arange(Li)
+        m = Li
+        clipped = np.zeros(m, dtype=bool)
+        periodic = True
+    else:
+        t = seg.t
+    # edge trimming and clipped neighbourhoods, decided before the heavy work so it runs once per column
+    if periodic or not cutoff:
+        trim = 0 if periodic else int(round((opts.trim or 0.0) * fs))
+    else:
+        trim = int(round((opts.trim if opts.trim is not None else 2.0 / cutoff) * fs))
+    if not periodic and cutoff and m < max(cond.min_filter_samples(opts.filter_order), 2 * trim + 3):
+        warnings.append(f"{where}: only {m} samples, too short to filter; skipped")
+        counts["short"] += m
+        return []
+    keep = np.ones(m, dtype=bool)
+    if trim:
+        keep[:trim] = False
+        keep[m - trim :] = False
+        counts["trimmed"] += int(min(m, 2 * trim))
+    if clipped.any():
+        spread_n = max(trim, 1)
+        dil = _dilate(clipped, spread_n)
+        counts["clipped"] += int((dil & keep).sum())
+        keep &= ~dil
+    runs = [(a, b) for a, b in _runs(keep) if b - a >= 3]
+    counts["short"] += int(keep.sum()) - sum(b - a for a, b in runs)
+    sel = [np.arange(a, b, opts.decimate) for a, b in runs]
+    if not sel:
+        return []
+    counts["decimated"] += sum(b - a for a, b in runs) - sum(len(s) for s in sel)
+    allsel = np.concatenate(sel)
+
+    need_dq = not (opts.logged_velocity and dq_log is not None)
+    need_ddq = not (opts.logged_acceleration and ddq_log is not None)
+    if opts.logged_velocity and dq_log is None:
+        raise DataError(f"{seg.source}: logged_velocity is set but the log has no velocity")
+    if opts.logged_acceleration and ddq_log is None:
+        raise DataError(f"{seg.source}: logged_acceleration is set but the log has no acceleration")
+    if (need_dq or need_ddq) and cutoff is None:
+        raise DataError(
+            "no low-pass cutoff: give cutoff (Hz), or the excitation's max_frequency or period and harmonics, or cutoff 0 for no filtering"
+        )
+    window = opts.savgol_window or cond.savgol_window(fs, cutoff or 0.25 * fs)
+    out = {k: np.empty((allsel.size, n)) for k in ("q", "dq", "ddq", "tau")}
+    slow = np.empty((allsel.size, n), dtype=bool)
+    if opts.reversal_margin is not None:
+        margin = int(round(opts.reversal_margin * fs))
+    else:
+        margin = int(round(0.25 / cutoff * fs)) if cutoff else 0
+
+    def filt(x):
+        return cond.lowpass(x, fs, cutoff, opts.filter_order, periodic=periodic) if cutoff else np.asarray(x, float)
+
+    for k in range(n):  # one joint at a time keeps the temporaries to a few columns
+        qf = filt(q[:, k])
+        out["q"][:, k] = qf[allsel]
+        if need_dq:
+            v = cond.derivative(qf, dt, opts.derivative, window, periodic)
+        else:
+            v = filt(dq_log[:, k])
+        out["dq"][:, k] = v[allsel]
+        flag = np.abs(v) < opts.slow_velocity
+        if margin:
+            rev = np.concatenate([np.diff(np.signbit(v).astype(np.int8)) != 0, [False]])
+            flag |= _dilate(rev, margin)
+        slow[:, k] = flag[allsel]
+        if need_ddq:
+            a = cond.derivative(v, dt, opts.derivative, window, periodic)
+        else:
+            a = filt(ddq_log[:, k])
+        out["ddq"][:, k] = a[allsel]
+        out["tau"][:, k] = filt(tau[:, k])[allsel]
+        del qf, v, a
+    segs = []
+    off = 0
+    for s in sel:
+        sl = slice(off, off + len(s))
+        off += len(s)
+        segs.append(Segment(seg.source, t[s], out["q"][sl], out["dq"][sl], out["ddq"][sl], out["tau"][sl], slow[sl]))
+    return segs

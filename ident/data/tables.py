@@ -1,0 +1,191 @@
+"""CSV and Parquet logs.
+
+Default table convention (no profile needed): a column ``time`` in seconds and, per joint,
+``<joint>.q`` (rad or m), ``<joint>.dq`` (optional), ``<joint>.ddq`` (optional) and ``<joint>.tau``
+(N m or N).
+"""
+
+from __future__ import annotations
+
+import csv
+import re
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import DataError, first_line
+from .dataset import CHANNELS
+from .profile import TIME_UNITS, LogProfile
+from .rawlog import RawLog, channel_factor, channel_spec, check_times, convert_channel, joint_map
+
+TABLE_SUFFIXES = {".csv": "csv", ".txt": "csv", ".parquet": "parquet", ".pq": "parquet"}
+
+
+def _table_columns(path: Path, fmt: str) -> list[str]:
+    try:
+        if fmt == "parquet":
+            import pyarrow.parquet as pq
+
+            return list(pq.read_schema(path).names)
+        with open(path, newline="", encoding="utf-8") as fh:
+            header = next(csv.reader(fh), None)
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise DataError(f"{path}: cannot read the header ({first_line(exc)})") from None
+    except Exception as exc:  # pyarrow raises its own types for files that are not Parquet
+        raise DataError(f"{path}: not a readable {fmt} file ({first_line(exc)})") from None
+    if not header:
+        raise DataError(f"{path}: empty file, no header row")
+    return [h.strip() for h in header]
+
+
+def _available_joints(columns: list[str], pattern: str) -> list[str]:
+    rx = re.compile("^" + re.escape(pattern).replace(re.escape("{name}"), "(.+)") + "$")
+    return [m.group(1) for c in columns if (m := rx.match(c))]
+
+
+def read_table(path: Path, fmt: str, robot, prof: LogProfile) -> RawLog:
+    columns = _table_columns(path, fmt)
+    dup = sorted({c for c in columns if columns.count(c) > 1})
+    if dup:
+        raise DataError(f"{path}: column '{dup[0]}' appears more than once")
+    colset = set(columns)
+    model, log_names, warns = joint_map(_available_joints(columns, prof.patterns["q"]), robot, prof, str(path))
+    n = len(model)
+    # which column feeds each channel of each joint
+    wanted: dict[str, list[str | None]] = {}
+    for ch in CHANNELS:
+        cols = []
+        for j, ln in zip(model, log_names):
+            spec = channel_spec(prof, j, ch)
+            col = spec.column or prof.patterns[ch].format(name=ln)
+            if col not in colset:
+                if spec.explicit or ch in ("q", "tau"):
+                    src = f"profile {prof.source}" if spec.explicit else "the column convention"
+                    raise DataError(f"{path}: no column '{col}' for joint '{j}' ({ch}), as named by {src}")
+                col = None
+            cols.append(col)
+        wanted[ch] = cols
+    for ch in ("dq", "ddq"):
+        if any(c is not None for c in wanted[ch]) and any(c is None for c in wanted[ch]):
+            missing = [j for j, c in zip(model, wanted[ch]) if c is None]
+            raise DataError(f"{path}: {ch} is logged for some joints but not for {', '.join(missing)}")
+    tcol = prof.time_column
+    if prof.rate is None and tcol not in colset:
+        raise DataError(f"{path}: no time column '{tcol}' (name it in the profile: time: {{column: ...}}, or give time: {{rate: HZ}})")
+    need = [c for ch in CHANNELS for c in wanted[ch] if c is not None]
+    if prof.rate is None:
+        need = [tcol] + need
+    get = _column_source(path, fmt, need)
+    m = get.n_rows
+    if m == 0:
+        raise DataError(f"{path}: no data rows")
+    if prof.rate is None:
+        t = _numeric(get(tcol), path, tcol) * TIME_UNITS[prof.time_unit]
+    else:
+        t = np.arange(m, dtype=float) / prof.rate
+    arrays = {}
+    jt = robot.joint_type if robot is not None else [None] * n
+    limit = np.full(n, np.inf)
+    if robot is not None:
+        limit[:] = robot.effort_limit
+    for ch in CHANNELS:
+        if wanted[ch][0] is None:
+            arrays[ch] = None
+            continue
+        a = np.empty((m, n), order="F")  # column-major: each column is written and filtered contiguously
+        for k, (j, col) in enumerate(zip(model, wanted[ch])):
+            spec = channel_spec(prof, j, ch)
+            f = channel_factor(spec, ch, prof, jt[k], f"{path}: column '{col}'")
+            a[:, k] = _numeric(get(col), path, col)
+            convert_channel(a[:, k], spec, f)
+            if ch == "tau" and spec.limit is not None:
+                limit[k] = spec.limit
+        arrays[ch] = a
+    del get
+    raw = RawLog(str(path), model, t, arrays["q"], arrays["dq"], arrays["ddq"], arrays["tau"], limit, warns)
+    check_times(raw.t, str(path), "row")
+    return raw
+
+
+class _column_source:
+    """Reads named columns of a table one at a time (Parquet) or from one parse (CSV)."""
+
+    def __init__(self, path: Path, fmt: str, columns: list[str]):
+        self.path = path
+        self.fmt = fmt
+        try:
+            if fmt == "parquet":
+                import pyarrow.parquet as pq
+
+                self._pf = pq.ParquetFile(path)
+                self.n_rows = int(self._pf.metadata.num_rows)
+                self._table = None
+            else:
+                import pyarrow as pa
+                import pyarrow.csv as pacsv
+
+                self._table = pacsv.read_csv(
+                    path,
+                    convert_options=pacsv.ConvertOptions(
+                        include_columns=columns,
+                        column_types={c: pa.float64() for c in columns},
+                        strings_can_be_null=True,
+                    ),
+                )
+                self.n_rows = self._table.num_rows
+        except Exception as exc:  # pyarrow's ArrowInvalid & co: name the file, keep one line
+            detail = _diagnose_csv(path, columns) if fmt == "csv" else None
+            raise DataError(detail or f"{path}: cannot read as {fmt} ({first_line(exc)})") from None
+
+    def __call__(self, column: str):
+        try:
+            if self._table is not None:
+                col = self._table.column(column)
+            else:
+                col = self._pf.read(columns=[column]).column(0)
+        except Exception as exc:
+            raise DataError(f"{self.path}: cannot read column '{column}' ({first_line(exc)})") from None
+        return col
+
+
+def _diagnose_csv(path: Path, columns: list[str]) -> str | None:
+    """After a failed fast parse, find the first offending row and column (slow, error path only)."""
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rd = csv.reader(fh)
+            header = [h.strip() for h in next(rd)]
+            idx = {c: header.index(c) for c in columns if c in header}
+            for row_no, row in enumerate(rd, start=1):
+                if not row:
+                    continue
+                if len(row) != len(header):
+                    return f"{path}: data row {row_no} has {len(row)} fields, the header has {len(header)}"
+                for c, i in idx.items():
+                    cell = row[i].strip()
+                    if cell == "":
+                        return f"{path}: column '{c}' has an empty value at data row {row_no}"
+                    try:
+                        float(cell)
+                    except ValueError:
+                        return f"{path}: column '{c}' has a non-numeric value {cell[:20]!r} at data row {row_no}"  # repr: a quoted cell may hold a line break
+    except (OSError, UnicodeDecodeError, csv.Error, StopIteration) as exc:
+        return f"{path}: cannot read as csv ({first_line(exc)})"
+    return None
+
+
+def _numeric(col, path: Path, name: str) -> np.ndarray:
+    """A pyarrow column as float64 numpy; clear errors for text, nulls, NaN and inf."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if not (pa.types.is_floating(col.type) or pa.types.is_integer(col.type) or pa.types.is_decimal(col.type)):
+        raise DataError(f"{path}: column '{name}' is not numeric (type {col.type})")
+    if col.null_count:
+        row = int(np.flatnonzero(pc.is_null(col).to_numpy(zero_copy_only=False))[0])
+        # pyarrow's CSV reader turns empty cells and the texts NaN/NA/null alike into nulls
+        raise DataError(f"{path}: column '{name}' has an empty or NaN value at data row {row + 1}")
+    a = col.to_numpy().astype(float, copy=False)
+    if not np.all(np.isfinite(a)):
+        row = int(np.flatnonzero(~np.isfinite(a))[0])
+        raise DataError(f"{path}: column '{name}' has a non-finite value ({a[row]}) at data row {row + 1}")
+    return a

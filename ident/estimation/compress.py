@@ -1,0 +1,273 @@
+"""Streaming compression of the identification problem: per-joint triangular factors.
+
+For joint j the rows of the base regressor and the measured torque, ``[Y_b,j | tau_j]`` (N, b+1),
+are reduced chunk by chunk to the upper triangle ``T_j`` of their QR factorization: the chunk is
+stacked under the current triangle and re-factored (Householder QR, LAPACK ``dgeqrf``), so the
+memory never grows with N and the result is exactly as stable as a QR of the whole stacked
+matrix. Since ``||[Y | tau] [beta; -1]||^2 = ||T [beta; -1]||^2`` for every beta, everything
+downstream (OLS, WLS, the consistent SDP, residuals) works on the triangles alone.
+
+Why one triangle per joint: weighted least squares scales each joint's rows by ``1/sigma_j``,
+and ``sigma_j`` is only known after a first fit. Keeping the joints apart lets both fits come
+from one pass over the data (stack ``T_j / sigma_j`` afterwards). It is also faster: joint j's
+rows are zero outside the columns of the bodies it carries and its own terms, so its triangle
+only spans those ``c_j`` columns (the QR cost falls with ``c_j^2``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+from scipy.linalg import lapack
+
+from ..arm.base import BaseParameters, base_parameters
+from ..arm.model import Robot, parse_terms
+from ..arm.regressor import iter_regressor
+from ..blas import single_thread_blas  # noqa: F401  (re-exported for the estimators)
+from ..errors import DataError, IdentError, NumericalError
+
+#: Samples per regressor chunk during compression (a 7-joint, 91-column chunk is ~42 MB).
+CHUNK = 8192
+
+
+def joint_columns(robot: Robot, bp: BaseParameters) -> list[np.ndarray]:
+    """Base columns that can be non-zero in joint j's rows, for each joint: (c_j,) int indices.
+
+    Joint j's torque depends on the inertial parameters of the bodies it carries (those with j on
+    their path to the base) and on its own joint terms only.
+    """
+    n = robot.n
+    n_terms = len(bp.terms)
+    out = []
+    for j in range(n):
+        keep = []
+        for k, f in enumerate(bp.independent):
+            if f < 10 * n:
+                if robot.ancestors[f // 10, j]:
+                    keep.append(k)
+            elif (f - 10 * n) // n_terms == j:
+                keep.append(k)
+        out.append(np.array(keep, dtype=np.int64))
+    return out
+
+
+def fold_rows(T: np.ndarray, A: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Upper triangle of the QR factor of ``[T; [A | b]]``: T (c+1, c+1), A (m, c), b (m,).
+
+    ``||[A | b] [x; -1]||^2`` is thereby added to the quadratic form that T stands for.
+    """
+    c = A.shape[1]
+    M = np.empty((c + 1 + A.shape[0], c + 1), order="F")
+    M[: c + 1] = T
+    M[c + 1 :, :c] = A
+    M[c + 1 :, c] = b
+    qr, _, _, info = lapack.dgeqrf(M, overwrite_a=1)
+    if info != 0:  # pragma: no cover - LAPACK argument error
+        raise NumericalError(f"QR of the regressor chunk failed (LAPACK info {info})")
+    return np.triu(qr[: c + 1])
+
+
+@dataclass
+class Reduced:
+    """The compressed problem ``min ||R beta - z||^2 + rho^2`` (b unknowns).
+
+    R (b, b) upper triangular; z (b,); rho the residual norm no beta can remove (same units as the
+    weighted torque); rows the number of scalar equations it stands for.
+    """
+
+    R: np.ndarray
+    z: np.ndarray
+    rho: float
+    rows: int
+
+
+class Compressor:
+    """Accumulates the per-joint triangles of ``[Y_b | tau]`` over any number of logs.
+
+    Parameters
+    ----------
+    robot : the model.
+    terms : joint-term codes carried by the regressor.
+    base : base parameters to use (default: :func:`ident.arm.base.base_parameters` of robot, terms).
+    chunk : samples per regressor chunk.
+
+    Attributes
+    ----------
+    triangles : list of (c_j + 1, c_j + 1) upper triangles, one per joint, over the columns
+        ``columns[j]`` of the base set plus the torque.
+    samples : total samples added; sources : labels of the logs added, in order.
+    """
+
+    def __init__(self, robot: Robot, terms=(), base: BaseParameters | None = None, chunk: int = CHUNK):
+        self.robot = robot
+        self.terms = parse_terms(terms)
+        self.base = base if base is not None else base_parameters(robot, self.terms)
+        if tuple(self.base.terms) != self.terms:
+            raise IdentError(f"base parameters were computed for terms {list(self.base.terms)}, not {list(self.terms)}")
+        if chunk < 1:
+            raise IdentError(f"chunk: must be a positive number of samples, got {chunk}")
+        self.chunk = int(chunk)
+        self.columns = joint_columns(robot, self.base)
+        self.triangles = [np.zeros((c.size + 1, c.size + 1)) for c in self.columns]
+        self.samples = 0
+        self.rows = np.zeros(robot.n, dtype=np.int64)
+        self.sources: list[str] = []
+        self.sum_tau2 = np.zeros(robot.n)
+
+    @property
+    def n_base(self) -> int:
+        """Number of base parameters b."""
+        return self.base.n_base
+
+    def add(self, q, dq, ddq, tau, source: str = "", progress=None, keep=None) -> "Compressor":
+        """Fold one log into the triangles.
+
+        Parameters
+        ----------
+        q, dq, ddq : (N, n) joint positions (rad or m), velocities, accelerations.
+        tau : (N, n) measured joint torques (N m) or forces (N).
+        source : label of the log (kept in :attr:`sources`, used in messages).
+        progress : optional callable ``progress(samples_done_in_this_log)``.
+        keep : optional (N, n) bool: which joint equations to use (False drops joint j's equation
+            at that sample only, e.g. where the velocity is too small for sign(q') to be trusted).
+        """
+        where = source or "data"
+        try:
+            q, dq, ddq, tau = self.robot.check_states(q, dq, ddq, tau, names=("q", "dq", "ddq", "tau"))
+        except IdentError as exc:
+            raise DataError(f"{where}: {exc}") from None
+        if keep is not None:
+            keep = np.asarray(keep, dtype=bool)
+            if keep.shape != q.shape:
+                raise DataError(f"{where}: sample mask has shape {keep.shape}, expected {q.shape}")
+            if keep.all():
+                keep = None
+        with single_thread_blas():
+            for sl, Y in iter_regressor(self.robot, q, dq, ddq, self.terms, self.chunk):
+                self._fold(Y, tau[sl], None if keep is None else keep[sl])
+                if progress is not None:
+                    progress(sl.stop)
+        self.samples += q.shape[0]
+        self.rows += q.shape[0] if keep is None else keep.sum(axis=0)
+        self.sources.append(source)
+        t2 = tau * tau if keep is None else np.where(keep, tau * tau, 0.0)
+        self.sum_tau2 += t2.sum(axis=0)
+        return self
+
+    def _fold(self, Y: np.ndarray, tau: np.ndarray, keep=None) -> None:
+        indep = self.base.independent
+        for j, cols in enumerate(self.columns):
+            if keep is None:
+                self.triangles[j] = fold_rows(self.triangles[j], Y[:, j, indep[cols]], tau[:, j])
+            else:
+                rows = np.flatnonzero(keep[:, j])
+                if rows.size:
+                    self.triangles[j] = fold_rows(self.triangles[j], Y[rows, j][:, indep[cols]], tau[rows, j])
+
+    def merge(self, other: "Compressor") -> "Compressor":
+        """Fold another compressor's triangles (same robot, terms and base set) into this one."""
+        if other.base.names != self.base.names or other.robot.joint_names != self.robot.joint_names:
+            raise IdentError("cannot merge compressed data of different models or base sets")
+        for j in range(self.robot.n):
+            self.triangles[j] = np.triu(scipy.linalg.qr(np.vstack([self.triangles[j], other.triangles[j]]), mode="r", check_finite=False)[0][: self.columns[j].size + 1])
+        self.samples += other.samples
+        self.rows += other.rows
+        self.sources += other.sources
+        self.sum_tau2 += other.sum_tau2
+        return self
+
+    def joint_rows(self, j: int, weight: float = 1.0) -> np.ndarray:
+        """Joint j's triangle embedded in the full base columns: (c_j + 1, b + 1), times `weight`."""
+        b = self.n_base
+        T = self.triangles[j]
+        out = np.zeros((T.shape[0], b + 1))
+        out[:, self.columns[j]] = T[:, :-1]
+        out[:, b] = T[:, -1]
+        return weight * out
+
+    def reduce(self, weights=None) -> Reduced:
+        """The combined problem over all joints, each joint's rows scaled by ``weights[j]``
+        (default 1): one (b+1) triangle from the stacked per-joint triangles."""
+        if self.samples == 0:
+            raise DataError("no samples: add at least one log before fitting")
+        n, b = self.robot.n, self.n_base
+        w = np.ones(n) if weights is None else np.asarray(weights, dtype=float).reshape(n)
+        S = np.vstack([self.joint_rows(j, w[j]) for j in range(n)])
+        T = scipy.linalg.qr(S, mode="r", check_finite=False)[0][: b + 1]
+        if T.shape[0] < b + 1:
+            T = np.vstack([T, np.zeros((b + 1 - T.shape[0], b + 1))])
+        return Reduced(R=np.triu(T[:b, :b]), z=T[:b, b].copy(), rho=float(abs(T[b, b])), rows=int(self.rows.sum()))
+
+    def joint_rss(self, beta: np.ndarray) -> np.ndarray:
+        """Residual sum of squares of each joint for base parameters beta (b,): (n,) in (N m)^2."""
+        beta = np.asarray(beta, dtype=float)
+        out = np.empty(self.robot.n)
+        for j, cols in enumerate(self.columns):
+            T = self.triangles[j]
+            r = T[:, :-1] @ beta[cols] - T[:, -1]
+            out[j] = r @ r
+        return out
+
+
+def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, progress=None, chunk: int = CHUNK,
+             drop_slow: bool | None = None, slow_velocity: float | None = None) -> Compressor:
+    """Compress one or several logs into a :class:`Compressor`.
+
+    Parameters
+    ----------
+    robot : the model.
+    data : a data set (object with ``segments``, each with ``q, dq, ddq, tau`` (m, n) and a
+        ``source``), a tuple ``(q, dq, ddq, tau)`` of (N, n) arrays, or a list of those.
+    terms : joint-term codes.
+    base : base parameters (default: computed for robot and terms).
+    progress : optional callable ``progress(samples_done, samples_total)``.
+    drop_slow : leave out joint j's equation at samples a data set flags as slow for joint j
+        (``Segment.slow``: |q'| below its threshold, where sign(q') and so the Coulomb column are
+        unreliable). Default: when the Coulomb term ``fc`` is among `terms`.
+    slow_velocity : for array input (which carries no such flags): |q'| threshold (rad/s or m/s)
+        below which a joint's equation counts as slow. Data sets keep their own flags.
+    """
+    if slow_velocity is not None and not (np.isfinite(slow_velocity) and slow_velocity >= 0):
+        raise IdentError(f"slow_velocity: must be a non-negative number, got {slow_velocity}")
+    comp = Compressor(robot, terms, base, chunk)
+    if drop_slow is None:
+        drop_slow = "fc" in comp.terms
+    segs = list(iter_segments(robot, data, with_slow=True))
+    total = sum(s[1].shape[0] for s in segs)
+    done = 0
+    for source, q, dq, ddq, tau, slow in segs:
+        cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
+        if slow is None and slow_velocity:
+            slow = np.abs(np.asarray(dq, dtype=float)) < slow_velocity
+        keep = ~np.asarray(slow, dtype=bool) if (drop_slow and slow is not None) else None
+        comp.add(q, dq, ddq, tau, source=source, progress=cb, keep=keep)
+        done += q.shape[0]
+    return comp
+
+
+def iter_segments(robot: Robot, data, with_slow: bool = False):
+    """Yield ``(source, q, dq, ddq, tau)`` from a data set, an array tuple, or a list of those;
+    with `with_slow`, a sixth item: the segment's (m, n) slow-sample mask or None."""
+    if hasattr(data, "segments"):
+        names = getattr(data, "joint_names", None)
+        if names is not None and list(names) != list(robot.joint_names):
+            raise DataError(f"data set joints {list(names)} do not match the model's joints {list(robot.joint_names)} (load it with the robot)")
+        for k, seg in enumerate(data.segments):
+            if seg.dq is None or seg.ddq is None:
+                raise DataError(f"{seg.source}: segment has no velocities/accelerations (load the logs with load_dataset, which conditions them)")
+            item = (str(getattr(seg, "source", "") or f"segment {k}"), seg.q, seg.dq, seg.ddq, seg.tau)
+            yield item + ((getattr(seg, "slow", None),) if with_slow else ())
+        return
+    if isinstance(data, tuple) and len(data) == 4 and not hasattr(data[0], "segments") and np.ndim(data[0]) in (1, 2):
+        yield ("arrays", *data) + ((None,) if with_slow else ())
+        return
+    if isinstance(data, (list, tuple)):
+        if not data:
+            raise DataError("no data given")
+        for k, item in enumerate(data):
+            for source, *arrays in iter_segments(robot, item, with_slow):
+                yield (source if source != "arrays" else f"arrays[{k}]", *arrays)
+        return
+    raise DataError(f"data: expected a data set or (q, dq, ddq, tau) arrays, got {type(data).__name__}")

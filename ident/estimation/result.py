@@ -1,0 +1,234 @@
+"""The fit's result: estimates, uncertainties and diagnostics, a statsmodels-style table, and the parameter set it stands for.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..arm.base import BaseParameters
+from ..arm.model import Robot
+from ..arm.parameters import PHYSICAL_TOL, BaseTable, ParameterSet, parameter_set_from_vector
+from ..arm.spatial import from_vector, pseudo_inertia
+from ..errors import IdentError
+
+METHODS = ("ols", "wls", "consistent")
+
+
+#: Default joint terms (the CLI's default too).
+DEFAULT_TERMS = ("fv", "fc", "ia")
+
+
+#: Relative standard deviation (%) above which a base parameter is flagged (common practice: 10 %).
+POOR_REL_STD = 10.0
+
+
+class ExcitationWarning(UserWarning):
+    """The data leave some base-parameter directions (nearly) unexcited."""
+
+
+@dataclass
+class Bounds:
+    """Optional constraints of the consistent fit (per body, by body name).
+
+    mass : {body: (min kg, max kg)}; com : {body: ((xmin, ymin, zmin), (xmax, ymax, zmax))} m in
+    the body frame; total_mass : kg, the sum of the identified bodies' masses.
+    """
+
+    mass: dict = field(default_factory=dict)
+    com: dict = field(default_factory=dict)
+    total_mass: float | None = None
+
+    def empty(self) -> bool:
+        return not self.mass and not self.com and self.total_mass is None
+
+    def check(self, robot: Robot) -> None:
+        """Validate names and numbers; one-line errors naming the body."""
+        for kind, table in (("mass bound", self.mass), ("COM bound", self.com)):
+            for body in table:
+                if body not in robot.body_names:
+                    raise IdentError(f"{kind}: '{body}' is not a body of {robot.name} (bodies: {', '.join(robot.body_names)})")
+        for body, (lo, hi) in self.mass.items():
+            if not (np.isfinite(lo) and np.isfinite(hi) and 0 <= lo <= hi):
+                raise IdentError(f"mass bound of '{body}': need 0 <= min <= max, got ({lo}, {hi})")
+        for body, (lo, hi) in self.com.items():
+            lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+            if lo.shape != (3,) or hi.shape != (3,) or not np.all(np.isfinite(lo)) or not np.all(np.isfinite(hi)) or np.any(lo > hi):
+                raise IdentError(f"COM bound of '{body}': need two triples with min <= max, got {lo.tolist()}, {hi.tolist()}")
+        if self.total_mass is not None and not (np.isfinite(self.total_mass) and self.total_mass > 0):
+            raise IdentError(f"total mass: must be a positive number of kg, got {self.total_mass}")
+
+
+@dataclass
+class FitResult:
+    """The outcome of :func:`fit`.
+
+    Attributes
+    ----------
+    robot, terms, base : model, joint-term codes and base-parameter set used.
+    method : "ols", "wls" or "consistent".
+    beta : (b,) base parameter estimates (for ``consistent``: the base parameters of `full`).
+    cov : (b, b) covariance of the base parameters (for ``consistent``: the WLS covariance).
+    full : (p,) a full parameter vector reproducing `beta` (regressor column order). For OLS and
+        WLS: the realization closest to the prior (see :func:`realization`; it may be physically
+        impossible: see `physical`); for ``consistent``: the constrained realization.
+    sigma : (n,) per-joint noise standard deviation estimated from the residuals (N m): of the OLS
+        fit for ``ols``, of the first WLS fit otherwise.
+    residual_rms : (n,) RMS of the residual of this fit, per joint (N m or N).
+    condition : condition number of the column-scaled base regressor.
+    unexcited : descriptions of the base-parameter directions the data barely excite.
+    samples, sources : amount and origin of the data.
+    solver : details of the consistent fit (stage, status, time), empty otherwise.
+    warnings : every warning raised on the way.
+    """
+
+    robot: Robot
+    terms: tuple[str, ...]
+    base: BaseParameters
+    method: str
+    beta: np.ndarray
+    cov: np.ndarray
+    full: np.ndarray
+    sigma: np.ndarray
+    residual_rms: np.ndarray
+    condition: float
+    unexcited: list[str]
+    samples: int
+    sources: list[str]
+    solver: dict = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def names(self) -> list[str]:
+        """(b,) base parameter names."""
+        return list(self.base.names)
+
+    @property
+    def std(self) -> np.ndarray:
+        """(b,) standard deviations of the base parameters."""
+        return np.sqrt(np.maximum(np.diag(self.cov), 0.0))
+
+    @property
+    def rel_std(self) -> np.ndarray:
+        """(b,) relative standard deviation in percent, 100 std / |beta| (inf where beta = 0)."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(self.beta != 0, 100.0 * self.std / np.abs(self.beta), np.inf)
+
+    @property
+    def poorly_identified(self) -> np.ndarray:
+        """(b,) bool: relative standard deviation above :data:`POOR_REL_STD` percent."""
+        return self.rel_std > POOR_REL_STD
+
+    @property
+    def inertial(self) -> np.ndarray:
+        """(n, 10) per-body parameters of the full realization."""
+        return self.full[: 10 * self.robot.n].reshape(self.robot.n, 10)
+
+    @property
+    def joint_params(self) -> dict[str, np.ndarray]:
+        """{term code: (n,) coefficients} of the full realization."""
+        n, nt = self.robot.n, len(self.terms)
+        t = self.full[10 * n :].reshape(n, nt) if nt else np.zeros((n, 0))
+        return {c: t[:, k].copy() for k, c in enumerate(self.terms)}
+
+    @property
+    def min_eigenvalue(self) -> np.ndarray:
+        """(n,) smallest eigenvalue of each body's pseudo-inertia (kg m^2; < 0 is impossible)."""
+        return np.linalg.eigvalsh(pseudo_inertia(self.inertial))[:, 0]
+
+    @property
+    def physical(self) -> np.ndarray:
+        """(n,) bool: each body of the full realization is physically realizable."""
+        ev = np.linalg.eigvalsh(pseudo_inertia(self.inertial))
+        return ev[:, 0] >= -PHYSICAL_TOL * np.maximum(np.abs(ev[:, -1]), 1e-300)
+
+    def predict(self, q, dq, ddq) -> np.ndarray:
+        """Model torque (N, n) of the full realization at (N, n) states."""
+        from ..arm.regressor import predict
+
+        return predict(self.robot, q, dq, ddq, self.full, self.terms)
+
+    def diagnostics(self) -> dict:
+        """Plain-type summary of the fit quality (goes into the parameter file)."""
+        joints = self.robot.joint_names
+        d = {
+            "condition_number": float(self.condition),
+            "residual_rms": {j: float(v) for j, v in zip(joints, self.residual_rms)},
+            "noise_std": {j: float(v) for j, v in zip(joints, self.sigma)},
+            "poorly_identified": [n for n, bad in zip(self.names, self.poorly_identified) if bad],
+            "unexcited_directions": list(self.unexcited),
+            "physical_links": {b: bool(ok) for b, ok in zip(self.robot.body_names, self.physical)},
+            "warnings": list(self.warnings),
+        }
+        if self.solver:
+            d["solver"] = dict(self.solver)
+        return d
+
+    def to_parameter_set(self, data: dict | None = None) -> ParameterSet:
+        """The :class:`ParameterSet` of this fit (full realization, base table, method, diagnostics)."""
+        method = {"name": self.method, "terms": list(self.terms)}
+        if self.method == "ols":
+            method["realization"] = "closest to the prior (log-det metric) among those with the estimated base parameters; may be non-physical"
+        elif self.method == "wls":
+            method["realization"] = "closest to the prior (log-det metric) among those with the estimated base parameters; may be non-physical"
+            method["weights"] = "per joint 1/sigma_j from OLS residuals"
+        else:
+            method["regularizer"] = "log-det divergence to the prior pseudo-inertias"
+            method.update({k: v for k, v in self.solver.items() if k in ("stage", "solver", "regularization")})
+        info = {"samples": int(self.samples), "sources": list(self.sources)}
+        if data:
+            info.update(data)
+        table = BaseTable(self.names, self.beta, self.std, self.base.relations())
+        return parameter_set_from_vector(self.robot, self.full, self.terms, base=table, method=method, data=info, diagnostics=self.diagnostics())
+
+    def summary(self) -> str:
+        """A text report: header with the diagnostics, then one row per base parameter."""
+        from ..text import format_table
+
+        r = self.robot
+        lines = [
+            f"Fit of {r.name}: method {self.method}, {self.samples} samples from {len(self.sources)} log(s), "
+            f"{self.base.n_base} base parameters (terms: {', '.join(self.terms) or 'none'})",
+            f"Condition number (column-scaled): {self.condition:.4g}",
+        ]
+        if self.solver:
+            lines.append("Consistent fit: " + ", ".join(f"{k} {v}" for k, v in self.solver.items() if k in ("stage", "status", "seconds")))
+            if self.solver.get("stage") == "trade-off":
+                lines.append("  (the unconstrained estimate has no physical realization: the estimates are those of the "
+                             "physical fit, the std those of the unconstrained WLS fit)")
+            else:
+                lines.append("  (the WLS estimate is physically realizable: kept exactly; the prior chose the realization)")
+        lines.append(format_table(
+            ["joint", "residual RMS", "noise std"],
+            [[j, f"{a:.4g}", f"{s:.4g}"] for j, a, s in zip(r.joint_names, self.residual_rms, self.sigma)],
+            "lrr",
+        ))
+        lines.append("")
+        rows = []
+        for name, b, s, rs, bad in zip(self.names, self.beta, self.std, self.rel_std, self.poorly_identified):
+            rows.append([name, f"{b: .6g}", f"{s:.3g}", "inf" if not np.isfinite(rs) else f"{rs:.3g}", "poor" if bad else ""])
+        lines.append(format_table(["parameter", "estimate", "std", "rel.std %", "flag"], rows, "lrrrl"))
+        lines.append("")
+        lines.append(format_table(
+            ["link", "mass kg", "COM x,y,z m", "physical"],
+            [_link_row(b, pi, ok) for b, pi, ok in zip(r.body_names, self.inertial, self.physical)],
+            "lrll",
+        ))
+        if self.unexcited:
+            lines.append("")
+            lines.append("Directions the data barely excite (set by the prior in a consistent fit):")
+            lines += [f"  {u}" for u in self.unexcited]
+        if self.warnings:
+            lines.append("")
+            lines += [f"warning: {w}" for w in self.warnings]
+        return "\n".join(lines)
+
+
+def _link_row(body, pi, ok):
+    if pi[0] > 0:
+        _, c, _ = from_vector(pi)
+        com = ", ".join(f"{x:.4g}" for x in c)
+    else:
+        com = "(undefined: mass <= 0)"
+    return [body, f"{pi[0]:.4g}", com, "yes" if ok else "NO"]

@@ -1,0 +1,217 @@
+"""Export identified parameters: into the robot's URDF (inertial elements rewritten) or as JSON/YAML.
+
+URDF export edits the text of the original file: only the ``<inertial>`` elements of identified
+links change (their byte spans are replaced), so comments, formatting, visuals, collisions, joints
+and every other element stay byte-for-byte as they were.
+
+Each identified body is written as the link that its joint moves (the URDF child link): origin at
+the centre of mass with ``rpy="0 0 0"`` (the link's axes) and the inertia about the COM, numbers
+with 17 significant digits so the file reproduces the identified model to machine precision.
+
+With ``friction=True`` each identified joint's ``<dynamics damping=... friction=...>`` element is
+written (or added) from the viscous (fv) and Coulomb (fc) coefficients, the URDF fields simulators
+read. URDF has no field for the armature (rotor inertia): it stays in the parameter file.
+
+Merged bodies: when fixed or locked joints join several links into one identified body (for
+example a gripper bolted to the flange), the parameters identify only their sum. The rule: the
+whole body goes on its root link (the one the joint moves) and the ``<inertial>`` of every other
+link of the body is removed (a comment marks where it went). The exported file then reproduces the
+identified model exactly with the same joints locked at the same positions; it cannot say how the
+mass splits between the merged links, and does not pretend to.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import numpy as np
+
+from ..arm.model import Robot
+from ..arm.parameters import ParameterSet
+from ..arm.spatial import check_physical, from_vector
+from ..errors import IdentError, ModelError
+from ..fileio import write_text
+from .paramfile import save_parameters
+
+_LINK_OPEN = re.compile(r"<link\b[^>]*?>", re.S)
+_NAME = re.compile(r"""\bname\s*=\s*(["'])(.*?)\1""", re.S)
+_INERTIAL = re.compile(r"<inertial\b[^>]*?/>|<inertial\b.*?</inertial\s*>", re.S)
+_COMMENT = re.compile(r"<!--.*?-->", re.S)
+_JOINT_OPEN = re.compile(r"<joint\b[^>]*?>", re.S)
+_TYPE = re.compile(r"""\btype\s*=""")
+_DYNAMICS = re.compile(r"<dynamics\b[^>]*?/>|<dynamics\b.*?</dynamics\s*>", re.S)
+
+
+def _num(x: float) -> str:
+    return format(float(x), ".17g")
+
+
+def inertial_xml(pi: np.ndarray, indent: str, step: str = "  ", note: str = "") -> str:
+    """URDF ``<inertial>`` element text for a body 10-vector `pi` (10,) in the link frame.
+
+    `indent` is the whitespace before the element, `step` one indentation level. The first line
+    carries no indentation (the caller places it).
+    """
+    m, c, I = from_vector(pi)
+    inner = indent + step
+    lines = []
+    if note:
+        lines.append(f"<!-- {note} -->")
+        lines.append(indent + "<inertial>")
+    else:
+        lines.append("<inertial>")
+    lines += [
+        f'{inner}<origin xyz="{_num(c[0])} {_num(c[1])} {_num(c[2])}" rpy="0 0 0"/>',
+        f'{inner}<mass value="{_num(m)}"/>',
+        f'{inner}<inertia ixx="{_num(I[0, 0])}" ixy="{_num(I[0, 1])}" ixz="{_num(I[0, 2])}" '
+        f'iyy="{_num(I[1, 1])}" iyz="{_num(I[1, 2])}" izz="{_num(I[2, 2])}"/>',
+        f"{indent}</inertial>",
+    ]
+    return "\n".join(lines)
+
+
+def _masked(text: str) -> str:
+    """`text` with XML comments blanked (same length) so searches never match inside comments."""
+    return _COMMENT.sub(lambda m: " " * len(m.group(0)), text)
+
+
+def _link_spans(text: str) -> dict[str, tuple[int, int, int, int]]:
+    """{link name: (start, open_end, close_start, end)} of each ``<link>`` element; self-closing links
+    have open_end == close_start == end."""
+    masked = _masked(text)
+    spans = {}
+    for m in _LINK_OPEN.finditer(masked):
+        nm = _NAME.search(m.group(0))
+        if nm is None:
+            continue
+        name = nm.group(2)
+        if m.group(0).rstrip().endswith("/>"):
+            spans[name] = (m.start(), m.end(), m.end(), m.end())
+            continue
+        close = masked.find("</link", m.end())
+        if close < 0:
+            raise ModelError(f"link '{name}': no closing </link>")
+        end = masked.find(">", close) + 1
+        spans[name] = (m.start(), m.end(), close, end)
+    return spans
+
+
+def _line_indent(text: str, pos: int) -> str:
+    start = text.rfind("\n", 0, pos) + 1
+    head = text[start:pos]
+    return head if head.strip() == "" else ""
+
+
+def _joint_spans(text: str, masked: str) -> dict[str, tuple[int, int, int, int]]:
+    """{joint name: (start, open_end, close_start, end)} of the top-level ``<joint type=...>`` elements
+    (``<joint>`` inside ``<transmission>`` has no type and is skipped)."""
+    spans = {}
+    for m in _JOINT_OPEN.finditer(masked):
+        opener = m.group(0)
+        nm = _NAME.search(opener)
+        if nm is None or not _TYPE.search(opener):
+            continue
+        if opener.rstrip().endswith("/>"):
+            spans[nm.group(2)] = (m.start(), m.end(), m.end(), m.end())
+            continue
+        close = masked.find("</joint", m.end())
+        spans[nm.group(2)] = (m.start(), m.end(), close, masked.find(">", close) + 1)
+    return spans
+
+
+def _friction_edits(text: str, masked: str, robot: Robot, ps: ParameterSet, where: str) -> list[tuple[int, int, str]]:
+    if "fv" not in ps.joint_params and "fc" not in ps.joint_params:
+        raise IdentError("friction export: the parameter set has no viscous (fv) or Coulomb (fc) terms")
+    spans = _joint_spans(text, masked)
+    edits = []
+    for i, joint in enumerate(robot.joint_names):
+        if joint not in spans:
+            raise ModelError(f"{where}: joint '{joint}' of the model is not in the file")
+        fv = float(ps.joint_params.get("fv", np.zeros(robot.n))[i])
+        fc = float(ps.joint_params.get("fc", np.zeros(robot.n))[i])
+        if fv < 0 or fc < 0:
+            raise IdentError(f"cannot export joint '{joint}': negative friction (fv {fv:g}, fc {fc:g}); use a consistent fit")
+        element = f'<dynamics damping="{_num(fv)}" friction="{_num(fc)}"/>'
+        start, open_end, close_start, end = spans[joint]
+        found = _DYNAMICS.search(masked[open_end:close_start])
+        if found is not None:
+            edits.append((open_end + found.start(), open_end + found.end(), element))
+        elif open_end == end:
+            raise ModelError(f"{where}: joint '{joint}' is an empty element")
+        else:
+            indent = _line_indent(text, start)
+            edits.append((close_start, close_start, f"  {element}\n{indent}"))
+    return edits
+
+
+def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "URDF", friction: bool = False) -> str:
+    """Rewrite the ``<inertial>`` elements of `text` (the URDF `robot` was loaded from) with `ps`.
+
+    Raises :class:`IdentError` naming the link when a body is not physically consistent (it has no
+    URDF form: mass <= 0 or an inertia about the COM that is not positive definite or violates the
+    triangle inequality), and :class:`ModelError` when a link of the model is missing from `text`.
+    `friction` also writes each joint's ``<dynamics damping friction>`` from fv and fc.
+    """
+    ps = ps.check_robot(robot, where="parameter set")
+    for i, body in enumerate(robot.body_names):
+        check_physical(ps.inertial[i], f"cannot export link '{body}'")
+    spans = _link_spans(text)
+    edits = []  # (start, end, replacement)
+    masked = _masked(text)
+    for i, group in enumerate(robot.merged):
+        for k, link in enumerate(group):
+            if link not in spans:
+                raise ModelError(f"{where}: link '{link}' of the model is not in the file")
+            start, open_end, close_start, end = spans[link]
+            body = masked[open_end:close_start]
+            found = _INERTIAL.search(body)
+            if k == 0:
+                note = f"identified by ident; includes the merged link(s) {', '.join(group[1:])}" if len(group) > 1 else ""
+                if found is not None:
+                    a, b = open_end + found.start(), open_end + found.end()
+                    indent = _line_indent(text, a)
+                    edits.append((a, b, inertial_xml(ps.inertial[i], indent, note=note)))
+                else:
+                    link_indent = _line_indent(text, start)
+                    indent = link_indent + "  "
+                    xml = indent + inertial_xml(ps.inertial[i], indent, note=note)
+                    if open_end == end:  # self-closing <link .../>: open it
+                        opener = text[start:open_end].rstrip()
+                        opener = opener[:-2].rstrip() + ">"
+                        edits.append((start, end, f"{opener}\n{xml}\n{link_indent}</link>"))
+                    else:
+                        # `</link>` sits after the link's own indentation: add one level before the element
+                        edits.append((close_start, close_start, f"  {xml.lstrip()}\n{link_indent}"))
+            elif found is not None:
+                a, b = open_end + found.start(), open_end + found.end()
+                edits.append((a, b, f"<!-- inertial moved to link '{group[0]}' (merged body) by ident export -->"))
+    if friction:
+        edits += _friction_edits(text, masked, robot, ps, where)
+    out = text
+    for a, b, rep in sorted(edits, key=lambda e: e[0], reverse=True):
+        out = out[:a] + rep + out[b:]
+    return out
+
+
+def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path, friction: bool = False) -> None:
+    """Write a copy of `urdf_path` with the identified inertial elements (see :func:`export_urdf_text`), atomically."""
+    p = Path(urdf_path)
+    if robot.source_kind != "urdf":
+        raise IdentError(f"{p}: URDF export needs a URDF robot description, got a {robot.source_kind or 'non-URDF'} file")
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ModelError(f"{p}: cannot read ({exc})") from None
+    write_text(out_path, export_urdf_text(text, robot, ps, where=str(p), friction=friction))
+
+
+def export_parameters(ps: ParameterSet, out_path, fmt: str) -> None:
+    """Write the parameter set as ``json`` or ``yaml`` (the parameter-file layout), atomically."""
+    if fmt == "yaml":
+        save_parameters(out_path, ps)
+    elif fmt == "json":
+        write_text(out_path, json.dumps(ps.to_dict(), indent=2) + "\n")
+    else:
+        raise IdentError(f"--format: '{fmt}' is not one of urdf, json, yaml")
