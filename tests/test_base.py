@@ -211,9 +211,16 @@ def test_narrow_sampling_is_detected(ur5):
 
 def test_cli_base_table_and_json(capsys):
     path = str(erd_path(UR5))
-    assert main(["model", path, "--base", "--terms", "all"]) == 0
+    assert main(["model", path, "--base", "--terms", "fv,fc,fo,ia"]) == 0
     out = capsys.readouterr().out
     assert "base parameters: 58 of 84" in out
+    # every term: the direction-dependent Coulomb columns [v > 0] and -[v < 0] span the same space as
+    # sign(v) and 1 (fc = fcp + fcn, fo = fcp - fcn, a fact of the definitions), so only the three
+    # low-speed shape columns per joint add: 58 + 6 x 3 = 76 of 84 + 6 x 5 = 114
+    assert main(["model", path, "--base", "--terms", "all"]) == 0
+    assert "base parameters: 76 of 114" in capsys.readouterr().out
+    assert main(["model", path, "--base", "--terms", "fv,fc,fo,ia"]) == 0
+    out = capsys.readouterr().out
     assert "shoulder_link.zzR" in out
     zero_line = next(line for line in out.splitlines() if line.startswith("never affect the torque"))
     assert "shoulder_link.m," in zero_line and "shoulder_link.zz" not in zero_line

@@ -334,16 +334,23 @@ def test_streamed_and_threaded_regressor_equal_the_full_one():
     kernels._regressor_parallel(*args, threaded)
     np.testing.assert_array_equal(serial, Y)
     np.testing.assert_array_equal(threaded, Y)
-    # the joint-term columns: fv q', fc sign(q'), fo 1, ia q'' on the joint's own row only
+    # the joint-term columns on the joint's own row only: fv q', fc sign(q'), fo 1, ia q'',
+    # fcp [q' > 0], fcn -[q' < 0], fl1..fl3 tanh(q' / s_k) (the definitions in ident.arm.model)
     p0 = 10 * r.n
-    block = Y[:, :, p0:].reshape(len(q), r.n, r.n, 4)
+    k = len(ident.parse_terms("all"))
+    block = Y[:, :, p0:].reshape(len(q), r.n, r.n, k)
     for j in range(r.n):
-        np.testing.assert_array_equal(block[:, j, j], np.stack([dq[:, j], np.sign(dq[:, j]), np.ones(len(q)), ddq[:, j]], 1))
+        v = dq[:, j]
+        expect = [v, np.sign(v), np.ones(len(q)), ddq[:, j], (v > 0).astype(float), -(v < 0).astype(float)]
+        expect += [np.tanh(v / sc) for sc in ident.arm.model.LOW_SPEED_SCALES]
+        np.testing.assert_allclose(block[:, j, j], np.stack(expect, 1), rtol=1e-15, atol=0)
         others = np.delete(block[:, j], j, axis=1)
         assert not others.any()
     # and with the description's parameters plus joint terms, Y pi is the full inverse dynamics
-    jp = {"fv": np.full(r.n, 0.3), "fc": np.full(r.n, 0.8), "fo": np.full(r.n, -0.1), "ia": np.full(r.n, 0.05)}
-    pi = np.concatenate([r.prior.reshape(-1), np.stack([jp[c] for c in ("fv", "fc", "fo", "ia")], 1).reshape(-1)])
+    jp = {"fv": np.full(r.n, 0.3), "fc": np.full(r.n, 0.8), "fo": np.full(r.n, -0.1), "ia": np.full(r.n, 0.05),
+          "fcp": np.full(r.n, 0.2), "fcn": np.full(r.n, 0.1), "fl1": np.full(r.n, 0.3), "fl2": np.full(r.n, -0.2), "fl3": np.full(r.n, 0.05)}
+    codes = ident.parse_terms("all")
+    pi = np.concatenate([r.prior.reshape(-1), np.stack([jp[c] for c in codes], 1).reshape(-1)])
     assert_close(ident.predict(r, q, dq, ddq, pi, "all"), ident.inverse_dynamics(r, q, dq, ddq, joint_params=jp), "Y pi with joint terms")
 
 

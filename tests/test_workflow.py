@@ -39,8 +39,8 @@ def test_demo_fit_predicts_held_out_torque_at_the_noise_level(demo_run):
     # the simulated torque-noise std (the simulation's own setting, recorded with the truth)
     noise = np.array([truth.data["torque_noise_std"][j] for j in robot.joint_names])
     rms = np.array([summary["heldout_rms"][j] for j in robot.joint_names])
-    # issue requirement: held-out RMS at most 1.1x the noise std on every joint. The check filters the
-    # torque like the positions (10 Hz), which removes part of the white noise, so the RMS sits below it.
+    # held-out RMS at most 1.1x the noise std on every joint. The check filters the torque like the
+    # positions (the cutoff the data chose), which removes part of the white noise, so the RMS sits below it.
     assert np.all(rms <= 1.1 * noise), rms / noise
     # Stricter: against the RAW logged torque (unfiltered, full noise) at the same samples the RMS must
     # still stay within 1.1 sigma, i.e. the model error adds less than half the noise in quadrature
@@ -50,7 +50,7 @@ def test_demo_fit_predicts_held_out_torque_at_the_noise_level(demo_run):
     from ident.data.load import load_dataset
     from ident.handover.check import validate_dataset
 
-    held = load_dataset([DEMO / "sprout6_heldout.csv"], robot=robot, options={"cutoff": 10.0})
+    held = load_dataset([DEMO / "sprout6_heldout.csv"], robot=robot)  # the defaults, as the demo uses
     raw = pd.read_csv(DEMO / "sprout6_heldout.csv")
     idx = np.searchsorted(raw["time"].to_numpy(), held.t)
     assert np.allclose(raw["time"].to_numpy()[idx], held.t)
@@ -66,14 +66,18 @@ def test_demo_fit_predicts_held_out_torque_at_the_noise_level(demo_run):
     ps = load_parameters(summary["parameters"], robot)
     assert ps.method["name"] == "consistent"
     assert ps.physical().all()
-    # friction is identifiable: within 10 % of the simulated truth on every joint
-    for code in ("fv", "fc"):
-        assert np.allclose(ps.joint_params[code], truth.joint_params[code], rtol=0.10), code
+    # friction is identifiable with the defaults (terms chosen from the data): viscous and the
+    # high-speed Coulomb levels in both directions within 5 % of the simulated truth on every joint
+    from ident.arm.dynamics import coulomb_levels
+
+    assert np.allclose(ps.joint_params["fv"], truth.joint_params["fv"], rtol=0.05)
+    up, down = coulomb_levels(ps.joint_params)
+    assert np.allclose(up, truth.joint_params["fc"], rtol=0.05) and np.allclose(down, truth.joint_params["fc"], rtol=0.05), (up, down)
 
 
 def test_check_command_agrees_with_the_demo_and_reports_consistency(demo_run):
     out, summary = demo_run
-    proc = cli("check", URDF, summary["parameters"], DEMO / "sprout6_heldout.csv", "--cutoff", "10", "--json")
+    proc = cli("check", URDF, summary["parameters"], DEMO / "sprout6_heldout.csv", "--json")
     assert proc.returncode == 0, proc.stderr
     res = json.loads(proc.stdout)
     assert res["all_physical"] and all(lk["physical"] for lk in res["links"])

@@ -17,7 +17,7 @@ import numpy as np
 
 from ..errors import IdentError
 from . import kernels
-from .model import JOINT_TERMS, Robot, kernel_arrays
+from .model import DRY_FRICTION_TERMS, JOINT_TERMS, LOW_SPEED_SCALES, Robot, kernel_arrays
 
 CHUNK = 8192
 
@@ -42,19 +42,74 @@ def check_joint_params(robot: Robot, joint_params) -> dict[str, np.ndarray]:
     return out
 
 
-def joint_term_torque(robot: Robot, dq, ddq, joint_params) -> np.ndarray:
-    """Per-joint terms fv q' + fc sign(q') + fo + ia q'' (N, n); sign(0) = 0."""
+def term_columns(terms, dq, ddq, dry=None) -> np.ndarray:
+    """Joint-term regressor columns (N, n, k) for the k codes in `terms`, from q' and q'' (N, n).
+
+    `dry` (N, n, 4) optionally gives the dry-friction shape signals [sign(v), tanh(v/s_1..3)]
+    already low-pass filtered like the torque (parallel filtering, see
+    :mod:`ident.data.segments`); the sign- and shape-based columns (fc, fcp, fcn, fl1..fl3) are
+    then taken from it, so a Coulomb step is smeared exactly as the filtered torque smears it.
+    Without it they are evaluated on `dq` (sign(0) = 0).
+    """
+    dq = np.asarray(dq, dtype=float)
+    ddq = np.asarray(ddq, dtype=float)
+    if dry is None:
+        sgn = np.sign(dq)
+        shape = [np.tanh(dq / s) for s in LOW_SPEED_SCALES]
+    else:
+        dry = np.asarray(dry, dtype=float)
+        if dry.shape != dq.shape + (4,):
+            raise IdentError(f"dry-friction signals: expected shape {dq.shape + (4,)}, got {dry.shape}")
+        sgn = dry[..., 0]
+        shape = [dry[..., 1 + k] for k in range(3)]
+    cols = {"fv": lambda: dq, "fc": lambda: sgn, "fo": lambda: np.ones_like(dq), "ia": lambda: ddq,
+            "fcp": lambda: 0.5 * (sgn + 1.0) if dry is not None else (dq > 0).astype(float),
+            "fcn": lambda: 0.5 * (sgn - 1.0) if dry is not None else -(dq < 0).astype(float),
+            "fl1": lambda: shape[0], "fl2": lambda: shape[1], "fl3": lambda: shape[2]}
+    codes = list(terms)
+    out = np.empty(dq.shape + (len(codes),))
+    for t, c in enumerate(codes):
+        if c not in cols:
+            raise IdentError(f"joint parameters: unknown term '{c}' (expected one of {', '.join(JOINT_TERMS)})")
+        out[..., t] = cols[c]()
+    return out
+
+
+def friction_law(joint_params: dict, v) -> np.ndarray:
+    """Static friction f(v) (g, n) of each joint at velocities v (g,) (rad/s or m/s): the sum of the
+    friction terms among `joint_params` ({code: (n,)}; offset and armature are not friction)."""
+    v = np.asarray(v, dtype=float).reshape(-1)
+    codes = [c for c in joint_params if c in DRY_FRICTION_TERMS or c == "fv"]
+    if not codes:
+        n = len(next(iter(joint_params.values()))) if joint_params else 0
+        return np.zeros((v.size, n))
+    n = np.asarray(joint_params[codes[0]]).size
+    V = np.repeat(v[:, None], n, axis=1)
+    cols = term_columns(codes, V, np.zeros_like(V))
+    return sum(np.asarray(joint_params[c], float) * cols[..., t] for t, c in enumerate(codes))
+
+
+def coulomb_levels(joint_params: dict, speed: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
+    """Dry-friction levels (n,) at high speed in the positive and negative direction: f(+v) - fv v
+    and -(f(-v) + fv v) at v = `speed`, where every low-speed shape term has saturated. For the
+    textbook model both equal fc."""
+    f = friction_law(joint_params, [speed, -speed])
+    fv = np.asarray(joint_params.get("fv", 0.0), float)
+    return f[0] - fv * speed, -(f[1] + fv * speed)
+
+
+def joint_term_torque(robot: Robot, dq, ddq, joint_params, dry=None) -> np.ndarray:
+    """Per-joint terms (N, n): sum over the given codes of coefficient x column (see :data:`JOINT_TERMS`),
+    e.g. fv q' + fc sign(q') + fo + ia q''; `dry` as in :func:`term_columns`."""
     dq, ddq = robot.check_states(dq, ddq, names=("dq", "ddq"))
     jp = check_joint_params(robot, joint_params)
     tau = np.zeros_like(dq)
-    if "fv" in jp:
-        tau += jp["fv"] * dq
-    if "fc" in jp:
-        tau += jp["fc"] * np.sign(dq)
-    if "fo" in jp:
-        tau += jp["fo"]
-    if "ia" in jp:
-        tau += jp["ia"] * ddq
+    if not jp:
+        return tau
+    codes = list(jp)
+    cols = term_columns(codes, dq, ddq, dry)
+    for t, c in enumerate(codes):
+        tau += jp[c] * cols[..., t]
     return tau
 
 
@@ -78,11 +133,14 @@ def rnea(robot: Robot, q, dq, ddq, inertial=None, gravity: bool = True, out=None
     return out
 
 
-def inverse_dynamics(robot: Robot, q, dq, ddq, inertial=None, joint_params=None, gravity: bool = True) -> np.ndarray:
-    """Joint torques tau (N, n) for motion (q, q', q'') (rad, rad/s, rad/s^2; m for prismatic), by RNEA plus joint terms."""
+def inverse_dynamics(robot: Robot, q, dq, ddq, inertial=None, joint_params=None, gravity: bool = True, dry=None) -> np.ndarray:
+    """Joint torques tau (N, n) for motion (q, q', q'') (rad, rad/s, rad/s^2; m for prismatic), by RNEA plus joint terms.
+
+    `dry` (N, n, 4): optional filtered dry-friction signals (see :func:`term_columns`).
+    """
     tau = rnea(robot, q, dq, ddq, inertial, gravity)
     if joint_params:
-        tau += joint_term_torque(robot, dq, ddq, joint_params)
+        tau += joint_term_torque(robot, dq, ddq, joint_params, dry)
     return tau
 
 

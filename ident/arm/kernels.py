@@ -111,6 +111,28 @@ def _forward(q, dq, ddq, s, parent, jtype, Rf, pf, ax, a0, R, p, w, dw, a):
             a[k, 2] += 2.0 * u2 * qd + z2 * qdd
 
 
+#: Velocity scales of the low-speed shape codes 6..8 (the same as ident.arm.model.LOW_SPEED_SCALES).
+_FL_SCALES = (0.005, 0.02, 0.08)
+
+
+@njit(**_INLINE)
+def _term_value(code, v, a):
+    """Regressor column of joint term `code` (0 fv, 1 fc, 2 fo, 3 ia, 4 fcp, 5 fcn, 6-8 fl1-fl3) at velocity v, acceleration a."""
+    if code == 0:
+        return v
+    if code == 1:
+        return 1.0 if v > 0.0 else (-1.0 if v < 0.0 else 0.0)
+    if code == 2:
+        return 1.0
+    if code == 3:
+        return a
+    if code == 4:
+        return 1.0 if v > 0.0 else 0.0
+    if code == 5:
+        return -1.0 if v < 0.0 else 0.0
+    return np.tanh(v / _FL_SCALES[code - 6])
+
+
 @njit(**_INLINE)
 def _regressor_sample(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, terms, Y, R, p, w, dw, a, S, BC):
     """Regressor of sample s into Y[s] (n, p); R, p, w, dw, a, S, BC are the caller's scratch arrays.
@@ -197,14 +219,7 @@ def _regressor_sample(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, terms, 
                 Y[s, j, c] = 0.0
             for t in range(nt):
                 code = terms[t]
-                if code == 0:
-                    v = dq[s, j]
-                elif code == 1:
-                    v = 1.0 if dq[s, j] > 0.0 else (-1.0 if dq[s, j] < 0.0 else 0.0)
-                elif code == 2:
-                    v = 1.0
-                else:
-                    v = ddq[s, j]
+                v = _term_value(code, dq[s, j], ddq[s, j])
                 Y[s, j, base + nt * j + t] = v
 
 
@@ -297,7 +312,7 @@ def regressor_chunk(q, dq, ddq, parent, jtype, Rf, pf, ax, anc, a0, terms, out):
     """Fill ``out`` (N, n, p) with the regressor of N samples; q, dq, ddq are (N, n).
 
     Columns: 10 inertial columns per body ``[m, mx, my, mz, xx, xy, xz, yy, yz, zz]``, then per
-    joint the selected terms in the order of ``terms`` (int codes 0 fv, 1 fc, 2 fo, 3 ia).
+    joint the selected terms in the order of ``terms`` (int codes: position in ident.arm.model.JOINT_TERMS).
     Joint j's row of body k's block is s_jk . (6x10 wrench block of body k), with s_jk joint j's
     motion axis expressed in body k's frame. Samples are independent: blocks of ``_BLOCK``
     samples run on numba's threads when :func:`use_threads` says so; the result is the same.

@@ -27,14 +27,35 @@ REVOLUTE = 0
 PRISMATIC = 1
 
 
-#: Per-joint terms the regressor can carry, by code: (name, unit of the coefficient).
+#: Per-joint terms the regressor can carry, by code: (name, unit of the coefficient). The column of
+#: each is a function of the joint's velocity v (or acceleration): fv v, fc sign(v), fo 1, ia q'',
+#: fcp [v > 0] and fcn -[v < 0] (direction-dependent Coulomb levels, both >= 0 for a dissipative
+#: joint), and fl1..fl3 tanh(v / s_k) with the fixed velocity scales :data:`LOW_SPEED_SCALES`: the
+#: low-speed friction shape, a linear basis whose mixed-sign coefficients follow a smooth
+#: transition through zero speed or a Stribeck-like hump above the Coulomb level.
 JOINT_TERMS = {
     "fv": ("viscous friction", "N m s/rad or N s/m"),
     "fc": ("Coulomb friction", "N m or N"),
     "fo": ("constant offset", "N m or N"),
     "ia": ("armature (reflected rotor inertia)", "kg m^2 or kg"),
+    "fcp": ("Coulomb level, positive velocity", "N m or N"),
+    "fcn": ("Coulomb level, negative velocity", "N m or N"),
+    "fl1": ("low-speed friction shape, tanh(v / 0.005)", "N m or N"),
+    "fl2": ("low-speed friction shape, tanh(v / 0.02)", "N m or N"),
+    "fl3": ("low-speed friction shape, tanh(v / 0.08)", "N m or N"),
 }
 
+#: Velocity scales s_k of the low-speed shape terms fl1..fl3 (rad/s, or m/s for a prismatic joint):
+#: spread over the range where joint friction leaves its breakaway level (Stribeck velocities of
+#: geared joints are of the order of 0.01 rad/s; Armstrong-Helouvry et al. 1994 survey).
+LOW_SPEED_SCALES = (0.005, 0.02, 0.08)
+
+#: Terms whose column is a function of sign or shape of the velocity: their regressor columns are
+#: the ones parallel filtering must smear like the torque, and the ones slow samples leave out.
+DRY_FRICTION_TERMS = ("fc", "fcp", "fcn", "fl1", "fl2", "fl3")
+
+#: Term groups accepted by name in a selection.
+_TERM_GROUPS = {"lowspeed": ("fl1", "fl2", "fl3"), "fl": ("fl1", "fl2", "fl3"), "directional": ("fcp", "fcn")}
 
 _TERM_ALIASES = {"viscous": "fv", "coulomb": "fc", "offset": "fo", "armature": "ia"}
 
@@ -42,8 +63,9 @@ _TERM_ALIASES = {"viscous": "fv", "coulomb": "fc", "offset": "fo", "armature": "
 def parse_terms(terms) -> tuple[str, ...]:
     """Normalize a joint-term selection to codes in canonical order, e.g. ``"fv,fc"`` -> ``("fv", "fc")``.
 
-    Accepts an iterable or comma-separated string of codes (fv, fc, fo, ia) or names (viscous,
-    coulomb, offset, armature); ``"all"`` selects every term, ``None``/``""``/``"none"`` none.
+    Accepts an iterable or comma-separated string of codes (fv, fc, fo, ia, fcp, fcn, fl1, fl2,
+    fl3), names (viscous, coulomb, offset, armature) or groups (``directional`` = fcp, fcn;
+    ``lowspeed`` = fl1, fl2, fl3); ``"all"`` selects every term, ``None``/``""``/``"none"`` none.
     """
     if terms is None:
         return ()
@@ -55,9 +77,13 @@ def parse_terms(terms) -> tuple[str, ...]:
             return tuple(JOINT_TERMS)
     codes = set()
     for t in terms:
-        code = _TERM_ALIASES.get(str(t).lower(), str(t).lower())
+        key = str(t).lower()
+        if key in _TERM_GROUPS:
+            codes.update(_TERM_GROUPS[key])
+            continue
+        code = _TERM_ALIASES.get(key, key)
         if code not in JOINT_TERMS:
-            raise IdentError(f"unknown joint term '{t}': choose from {', '.join(JOINT_TERMS)} (or viscous, coulomb, offset, armature, all)")
+            raise IdentError(f"unknown joint term '{t}': choose from {', '.join(JOINT_TERMS)} (or viscous, coulomb, offset, armature, directional, lowspeed, all)")
         codes.add(code)
     return tuple(c for c in JOINT_TERMS if c in codes)
 

@@ -39,17 +39,38 @@ def regressor_into(robot: Robot, q, dq, ddq, out: np.ndarray, terms=()) -> np.nd
     return out
 
 
-def regressor(robot: Robot, q, dq, ddq, terms=()) -> np.ndarray:
+def regressor(robot: Robot, q, dq, ddq, terms=(), term_signals=None) -> np.ndarray:
     """The full regressor Y (N, n, p) for states q, q', q'' (N, n); p = n (10 + len(terms)).
 
-    Allocates N n p doubles: for long logs use :func:`iter_regressor` instead.
+    `term_signals` (N, n, k) optionally replaces the k joint-term columns (see
+    :func:`set_term_columns`). Allocates N n p doubles: for long logs use :func:`iter_regressor`.
     """
     q, dq, ddq = robot.check_states(q, dq, ddq)
     out = np.empty((q.shape[0], robot.n, robot.n_params(terms)))
     for start in range(0, q.shape[0], CHUNK):
         sl = slice(start, min(q.shape[0], start + CHUNK))
         regressor_into(robot, q[sl], dq[sl], ddq[sl], out[sl], terms)
+    if term_signals is not None:
+        set_term_columns(out, term_signals)
     return out
+
+
+def set_term_columns(Y: np.ndarray, term_signals) -> np.ndarray:
+    """Overwrite the joint-term columns of a regressor block Y (m, n, p) in place with
+    `term_signals` (m, n, k), joint j's own k columns in its own row (the others stay zero).
+
+    Used for parallel filtering: the dry-friction columns of a conditioned data set are filtered
+    like the torque (:func:`ident.arm.dynamics.term_columns`) rather than evaluated on q'.
+    """
+    m, n, p = Y.shape
+    S = np.asarray(term_signals, dtype=float)
+    k = (p - 10 * n) // n
+    if S.shape != (m, n, k):
+        raise IdentError(f"joint-term signals: expected shape {(m, n, k)}, got {S.shape}")
+    if k:
+        cols = 10 * n + k * np.arange(n)[:, None] + np.arange(k)[None, :]
+        Y[:, np.arange(n)[:, None], cols] = S
+    return Y
 
 
 def iter_regressor(robot: Robot, q, dq, ddq, terms=(), chunk: int = CHUNK) -> Iterator[tuple[slice, np.ndarray]]:

@@ -59,18 +59,22 @@ def robot_from_args(args: argparse.Namespace) -> Robot:
     return load_robot(args.robot, joints=joints, locked=parse_locks(args.lock), gravity=gravity)
 
 
-def add_terms_argument(parser: argparse.ArgumentParser, default: str = "fv,fc,ia") -> None:
-    """Add --terms (joint terms carried by the model)."""
+def add_terms_argument(parser: argparse.ArgumentParser, default: str = "fv,fc,ia", auto: bool = False) -> None:
+    """Add --terms (joint terms carried by the model); with `auto`, "auto" (chosen from the data) is allowed."""
+    extra = "; auto: the friction model that best predicts held-out blocks of the logs" if auto else ""
     parser.add_argument(
         "--terms",
         default=default,
         metavar="T1,T2",
-        help=f"per-joint terms: fv (viscous), fc (Coulomb), fo (offset), ia (armature), all or none (default {default})",
+        help=f"per-joint terms: fv (viscous), fc (Coulomb), fo (offset), ia (armature), fcp,fcn (directional Coulomb), "
+             f"fl1,fl2,fl3 (low-speed shape; groups directional, lowspeed), all or none{extra} (default {default})",
     )
 
 
-def terms_from_args(args: argparse.Namespace) -> tuple[str, ...]:
-    """The parsed --terms option."""
+def terms_from_args(args: argparse.Namespace):
+    """The parsed --terms option (the string "auto" passes through where the command allows it)."""
+    if str(args.terms).strip().lower() == "auto":
+        return "auto"
     return parse_terms(args.terms)
 
 

@@ -46,7 +46,7 @@ def add_parser(sub) -> None:
     p.add_argument("logs", nargs="+", metavar="LOG", help="log files (CSV, Parquet, ROS bags)")
     p.add_argument("--out", required=True, metavar="PARAMS", help="parameter file to write (YAML)")
     p.add_argument("--method", choices=METHODS, default="consistent", help="estimator: ols, wls, or consistent (physically consistent links; the default)")
-    add_terms_argument(p)
+    add_terms_argument(p, default="auto", auto=True)
     add_log_arguments(p)
     g = p.add_argument_group("consistent fit")
     g.add_argument("--prior", metavar="PARAMS", help="parameter file whose inertial values act as the prior (default: the description's)")

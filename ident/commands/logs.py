@@ -9,8 +9,8 @@ from ..arm.model import parse_terms
 from ..data.conditioning import CUTOFF_RATIO
 from ..data.dataset import Dataset
 from ..data.delay import apply_delay
-from ..data.load import load_dataset, read_logs
-from ..data.options import LogOptions, excitation_options
+from ..data.load import load_dataset
+from ..data.options import excitation_options
 from ..data.profile import load_profile
 from ..data.samples import describe, write_samples
 from ..errors import IdentError
@@ -42,9 +42,10 @@ def add_log_arguments(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--max-frequency", type=float, metavar="HZ", help="highest frequency of the excitation (sets the default cutoff)")
     g.add_argument("--excitation", metavar="YAML",
                    help="excitation file from 'ident excite' (coefficients.yaml or its config): gives --period and --harmonics")
-    g.add_argument("--period", type=float, metavar="S", help="excitation period: average over whole periods, estimate the noise variance")
+    g.add_argument("--period", type=float, metavar="S", help="excitation period: the torque noise variance from the spread between periods")
     g.add_argument("--harmonics", type=int, metavar="K", help="harmonics of the excitation (highest frequency = K / period)")
-    g.add_argument("--no-average", action="store_true", help="with --period: do not average over periods")
+    g.add_argument("--average", action="store_true", help="with --period: also replace the samples by their average over whole periods (exactly repeated motion only)")
+    g.add_argument("--no-average", action="store_true", help="with --period: keep every period's samples (the default)")
     g.add_argument("--derivative", choices=("central", "savgol"), help="differentiation of the filtered positions (default central)")
     g.add_argument("--savgol-window", type=int, metavar="N", help="Savitzky-Golay window, odd samples (default about half a cutoff period)")
     g.add_argument("--logged-velocity", action="store_true", help="use the logged velocities instead of differentiating positions")
@@ -79,6 +80,10 @@ def options_from_args(args: argparse.Namespace) -> dict:
     if getattr(args, "excitation", None):
         for key, val in excitation_options(args.excitation).items():
             opts.setdefault(key, val)  # explicit --period/--harmonics win
+    if args.average and args.no_average:
+        raise IdentError("--average and --no-average contradict each other: give one")
+    if args.average:
+        opts["average"] = True
     if args.no_average:
         opts["average"] = False
     if args.logged_velocity:
@@ -138,16 +143,11 @@ def run(args: argparse.Namespace) -> int:
     robot = robot_from_args(args) if args.robot else None
     opts = options_from_args(args)
     prof = load_profile(args.profile)
-    resolved = LogOptions.from_mapping(prof.conditioning, f"{prof.source}: conditioning").updated(opts)
-    needs_cutoff = resolved.resolved_cutoff() is None and not (resolved.logged_velocity and resolved.logged_acceleration)
-    if needs_cutoff:
-        ds = read_logs(args.logs, robot=robot, profile=prof, options=opts)
-    else:
-        ds = load_dataset(args.logs, robot=robot, profile=prof, options=opts)
+    ds = load_dataset(args.logs, robot=robot, profile=prof, options=opts)
     delay = None
     if args.estimate_delay or args.remove_delay:
-        if robot is None or needs_cutoff:
-            raise IdentError("--estimate-delay: needs --robot and conditioned samples (a cutoff: --cutoff, --max-frequency or --period with --harmonics)")
+        if robot is None:
+            raise IdentError("--estimate-delay: needs --robot (the preliminary fit needs the model)")
         delay = preliminary_delay(ds, robot, parse_terms(args.delay_terms))
         if args.remove_delay:
             ds = apply_delay(ds, delay)
@@ -156,17 +156,15 @@ def run(args: argparse.Namespace) -> int:
         summary["delay"] = {j: float(d) for j, d in zip(ds.joint_names, delay)}
         summary["delay_removed"] = bool(args.remove_delay)
     if args.out:
-        if needs_cutoff:
-            raise IdentError("--out: the samples are not conditioned (no cutoff known); give --cutoff, --max-frequency or --period with --harmonics")
         write_samples(args.out, ds)
     if args.json:
         print_json(summary)
         return 0
-    print(_text(ds, summary, robot, needs_cutoff))
+    print(_text(ds, summary, robot))
     return 0
 
 
-def _text(ds: Dataset, s: dict, robot, raw_only: bool) -> str:
+def _text(ds: Dataset, s: dict, robot) -> str:
     lines = []
     lines.append(f"joints ({len(s['joints'])}): {', '.join(s['joints'])}" + (f"  [model {robot.name}]" if robot is not None else ""))
     rows = []
@@ -175,12 +173,12 @@ def _text(ds: Dataset, s: dict, robot, raw_only: bool) -> str:
     lines.append("")
     lines.append(format_table(["file", "samples", "duration s", "rate Hz", "segments", "channels"], rows, "lrrrrl"))
     lines.append("")
-    if raw_only:
-        lines.append("not conditioned: no cutoff known (give --cutoff, --max-frequency, or --period with --harmonics)")
-    else:
-        c = s["cutoff"]
-        lines.append(f"conditioned: low-pass {c:g} Hz (zero phase), {ds.info['options']['derivative']} differences, "
-                     f"decimate {ds.info['options']['decimate']}" if c else "conditioned: no low-pass filter")
+    c = s["cutoff"]
+    rule = (s.get("cutoff_rule") or {}).get("rule", "given")
+    lines.append(f"conditioned: low-pass {c:.4g} Hz (zero phase; {rule}), {ds.info['options']['derivative']} differences, "
+                 f"decimate {ds.info['options']['decimate']}; dry-friction columns filtered like the torque" if c else "conditioned: no low-pass filter")
+    if s.get("slow_velocity"):
+        lines.append("slow zone |q'| below (rad/s or m/s): " + ", ".join(f"{j} {v:.3g}" for j, v in zip(s["joints"], s["slow_velocity"])))
     seg_rows = [[k + 1, g["source"], f"{g['start']:.4f}", f"{g['end']:.4f}", g["samples"], f"{g['rate']:.6g}" if g["rate"] else "-"]
                 for k, g in enumerate(s["segments"])]
     lines.append(f"segments: {len(seg_rows)}, samples used: {s['samples']}")
@@ -197,11 +195,12 @@ def _text(ds: Dataset, s: dict, robot, raw_only: bool) -> str:
     dropped = {k: v for k, v in s["dropped"].items() if v}
     labels = dict(outside_windows="outside time windows", short="in too-short pieces", trimmed="trimmed at segment ends (filter edges)",
                   clipped="clipped torque (and neighbours)", delay_edges="lost to the delay shift", decimated="removed by decimation",
-                  partial_period="in incomplete periods", averaged_out="merged by period averaging")
+                  partial_period="in incomplete periods", averaged_out="merged by period averaging",
+                  slow="joint samples in the slow zone (left out of dry-friction rows)", stuck="joint samples stuck (left out of their joint's equations)")
     lines.append("samples not used: " + ("none" if not dropped else "; ".join(f"{v} {labels.get(k, k)}" for k, v in dropped.items())))
     if s["noise_var"] is not None:
         sd = ", ".join(f"{j} {v ** 0.5:.3g}" for j, v in zip(s["joints"], s["noise_var"]))
-        lines.append(f"torque noise std per sample (from {ds.info.get('periods_averaged')} periods): {sd}")
+        lines.append(f"torque noise std per sample (from the spread between {ds.info.get('periods_averaged')} periods): {sd}")
     if "delay" in s:
         dl = ", ".join(f"{j} {1e3 * d:+.2f}" for j, d in s["delay"].items())
         lines.append(f"torque delay behind positions, ms (preliminary OLS fit): {dl}" + ("  [removed]" if s["delay_removed"] else ""))

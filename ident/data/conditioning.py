@@ -17,9 +17,10 @@ from scipy import signal
 
 from ..errors import DataError, NumericalError
 
-#: Default low-pass cutoff as a multiple of the highest excited frequency. Common practice puts
-#: it at 5-10x; we take the low end so more noise is rejected while the gain at the highest
-#: harmonic stays within 1e-4 of one for the 4th-order Butterworth used twice (filtfilt).
+#: Lowest default cutoff as a multiple of the highest excited frequency, when that is known. Common
+#: practice puts the cutoff at 5-10x; at 5x the gain at the highest harmonic stays within 1e-4 of
+#: one for the 4th-order Butterworth used twice (filtfilt). The data may ask for more
+#: (:func:`cutoff_from_data`).
 CUTOFF_RATIO = 5.0
 
 #: Default Butterworth order (applied forwards and backwards, so the effective order doubles).
@@ -33,6 +34,69 @@ def default_cutoff(max_frequency: float, ratio: float = CUTOFF_RATIO) -> float:
     if not (np.isfinite(max_frequency) and max_frequency > 0):
         raise DataError(f"highest excited frequency must be a positive number of Hz, got {max_frequency!r}")
     return float(ratio) * float(max_frequency)
+
+
+#: The data-driven cutoff (:func:`cutoff_from_data`) keeps this fraction of each joint's acceleration
+#: power (what stands above the position noise) ...
+POWER_FRACTION = 0.99
+
+#: ... and never reaches where the acceleration content falls to this multiple of its noise level.
+SIGNAL_TO_NOISE = 10.0
+
+#: Velocity for the sign and shape of dry friction: positions low-passed at this multiple of the cutoff
+#: (at most 0.4 x the sample rate), so a reversal is placed sharply before the parallel filter smears it.
+SIGN_CUTOFF_RATIO = 4.0
+
+
+def cutoff_from_data(q: np.ndarray, fs: float, lowest: float | None = None) -> tuple[float, dict]:
+    """Low-pass cutoff (Hz) chosen from logged positions q (m, n) sampled at `fs` (Hz).
+
+    Rule: the power spectrum (Welch, Hann windows of about 2 s) of each joint's second difference
+    -- the acceleration the fit will see -- is compared with the spectrum white position noise
+    would give it, ``S(f) = 2 sigma^2 (2 sin(pi f / fs))^4 / fs``, sigma^2 fitted on the top
+    fifth of the band, where no arm moves. Per joint, the cutoff candidate is the frequency below
+    which :data:`POWER_FRACTION` of the acceleration power lies, counting only the bins that stand
+    :data:`SIGNAL_TO_NOISE` times above the noise (elsewhere differentiating passes more noise than
+    motion, and noise in q'' biases the inertial estimates toward zero). The cutoff is the largest candidate over the joints, kept
+    within [`lowest`, 0.4 fs] (`lowest`: :data:`CUTOFF_RATIO` x the highest excited frequency when
+    known, so no excited harmonic is distorted; default 1 Hz).
+    With the dry-friction columns filtered like the torque, a cutoff below some of the motion's
+    content does not bias the fit: torque and regressor lose the same part.
+
+    Returns the cutoff and a dict of what was found (per-joint candidate, Hz; noise sigma, rad).
+    """
+    q = np.asarray(q, dtype=float)
+    if q.ndim == 1:
+        q = q[:, None]
+    lo = 1.0 if lowest is None else float(lowest)
+    hi = 0.4 * fs
+    m = q.shape[0]
+    if m < 64:
+        return float(np.clip(lo, 0.0, hi)), dict(rule="too few samples for a spectrum: lowest bound", candidate=[], sigma=[])
+    d2 = np.diff(q, 2, axis=0)
+    nper = int(min(d2.shape[0], 2 ** int(np.ceil(np.log2(max(64.0, 2.0 * fs))))))
+    f, P = signal.welch(d2, fs=fs, nperseg=nper, axis=0, detrend="linear")
+    shape = (2.0 * np.sin(np.pi * f / fs)) ** 4 * 2.0 / fs
+    top = f >= 0.8 * (0.5 * fs)
+    band = (f > 0) & (f < hi)
+    candidates, sigmas = [], []
+    for k in range(q.shape[1]):
+        sig2 = float(np.median(P[top, k] / np.maximum(shape[top], 1e-300)))
+        sigmas.append(float(np.sqrt(max(sig2, 0.0))))
+        # only bins standing clearly above the noise count as motion: the scatter of a Welch
+        # estimate around the noise level would otherwise add up to a spurious wide band
+        strong = band & (P[:, k] > SIGNAL_TO_NOISE * sig2 * shape)
+        excess = np.where(strong, P[:, k] - sig2 * shape, 0.0)
+        if not np.isfinite(sig2) or excess.sum() <= 0:
+            candidates.append(float("nan"))  # a joint that does not move says nothing about the band
+            continue
+        cum = np.cumsum(excess) / excess.sum()
+        f_power = float(f[min(int(np.searchsorted(cum, POWER_FRACTION)), f.size - 1)])
+        candidates.append(f_power)
+    valid = [c for c in candidates if np.isfinite(c)]
+    cut = max(valid) if valid else lo
+    return float(np.clip(cut, lo, hi)), dict(rule=f"{100 * POWER_FRACTION:g} % of the acceleration power above the position noise",
+                                             candidate=candidates, sigma=sigmas)
 
 
 def lowpass_sos(fs: float, cutoff: float, order: int = FILTER_ORDER) -> np.ndarray:

@@ -18,8 +18,12 @@ class Segment:
 
     Arrays are samples first, SI units, joints in the data set's order: ``t`` (m,) s; ``q``, ``dq``,
     ``ddq``, ``tau`` (m, n). Before conditioning ``dq``/``ddq`` may be None (not logged).
-    ``slow`` (m, n) bool flags samples whose |dq| is below the data set's slow-velocity threshold,
-    where sign(dq) of the Coulomb term is unreliable (the fit may drop or down-weight them).
+    ``slow`` (m, n) bool flags samples whose |dq| is within the velocity noise of zero, where
+    sign(dq) of the Coulomb term is unreliable (the fit drops them from the dry-friction joints'
+    equations); ``stuck`` (m, n) bool flags stretches where a joint stands still (its friction is
+    anything up to breakaway, so its equations leave the fit); ``dry`` (m, n, 4) holds the
+    dry-friction signals [sign(v), tanh(v / s_1..3)] of a lightly filtered velocity after the same
+    low-pass as the torque (see :func:`ident.arm.dynamics.term_columns`).
     """
 
     source: str
@@ -29,6 +33,8 @@ class Segment:
     ddq: np.ndarray | None
     tau: np.ndarray
     slow: np.ndarray | None = None
+    stuck: np.ndarray | None = None
+    dry: np.ndarray | None = None
 
     @property
     def n_samples(self) -> int:
@@ -99,6 +105,17 @@ class Dataset:
     @property
     def slow(self):
         return self._stack("slow")
+
+    @property
+    def stuck(self):
+        return self._stack("stuck")
+
+    @property
+    def dry(self):
+        parts = [s.dry for s in self.segments]
+        if not parts or any(p is None for p in parts):
+            return None
+        return np.concatenate(parts, axis=0)
 
     def segment_slices(self) -> list[slice]:
         """Row slices of each segment in the stacked arrays."""

@@ -27,7 +27,7 @@ def apply_delay(dataset: Dataset, delay) -> Dataset:
         if valid.sum() < 3:
             continue
         sl = lambda x: None if x is None else x[valid]  # noqa: E731
-        segs.append(Segment(s.source, s.t[valid], s.q[valid], sl(s.dq), sl(s.ddq), tau[valid], sl(s.slow)))
+        segs.append(Segment(s.source, s.t[valid], s.q[valid], sl(s.dq), sl(s.ddq), tau[valid], sl(s.slow), sl(s.stuck), sl(s.dry)))
     info = dict(dataset.info)
     info["delay_applied"] = d.tolist()
     info["delay_dropped"] = dropped

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import DataError
+from .conditioning import CUTOFF_RATIO, cutoff_from_data
 from .dataset import CHANNELS, Dataset, Segment
 from .options import LogOptions
 from .profile import LogProfile, load_profile
@@ -71,7 +72,9 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
         raise DataError("no log files given")
     cutoff = opts.resolved_cutoff() if condition else None
     warnings: list[str] = []
-    counts = dict(read=0, outside_windows=0, short=0, trimmed=0, clipped=0, delay_edges=0, decimated=0, partial_period=0, averaged_out=0)
+    counts = dict(read=0, outside_windows=0, short=0, trimmed=0, clipped=0, delay_edges=0, decimated=0, partial_period=0, averaged_out=0, slow=0, stuck=0)
+    thresholds = None
+    cutoff_info = dict(rule="given") if cutoff is not None else None
     segments: list[Segment] = []
     joint_names = None
     files = []
@@ -94,8 +97,16 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
         if not condition:
             segments += pieces
             continue
+        if cutoff is None and pieces:
+            # one cutoff for every file, chosen on the first one, so the parallel filter is the same throughout
+            longest = max(pieces, key=lambda s_: s_.n_samples)
+            f_max = opts.highest_frequency()
+            cutoff, cutoff_info = cutoff_from_data(longest.q, 1.0 / longest.dt, None if f_max is None else CUTOFF_RATIO * f_max)
+            cutoff_info["from"] = str(path)
+        if thresholds is None:
+            thresholds = np.zeros(len(joint_names))
         for seg in pieces:
-            segments += condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise)
+            segments += condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise, thresholds)
         del raw, pieces
     if condition and not segments:
         # the CLI shows this one line only, so it names the files and carries the warnings that explain it
@@ -104,7 +115,8 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
     noise_var = None
     info = dict(files=files, counts=counts, conditioned=condition,
                 options={k: (v.tolist() if isinstance(v, np.ndarray) else v) for k, v in dataclasses.asdict(opts).items()},
-                cutoff=cutoff, profile=prof.source)
+                cutoff=cutoff, cutoff_rule=cutoff_info, profile=prof.source,
+                slow_velocity=None if thresholds is None else thresholds.tolist())
     if noise:
         dof = np.array([d for _, d, _ in noise], float)
         noise_var = sum(v * d for v, d, _ in noise) / dof.sum()

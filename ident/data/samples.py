@@ -56,6 +56,8 @@ def describe(dataset: Dataset) -> dict:
         ranges=_ranges(dataset),
         noise_var=None if dataset.noise_var is None else dataset.noise_var.tolist(),
         cutoff=dataset.info.get("cutoff"),
+        cutoff_rule=dataset.info.get("cutoff_rule"),
+        slow_velocity=dataset.info.get("slow_velocity"),
         conditioned=dataset.info.get("conditioned"),
         warnings=list(dataset.warnings),
     )

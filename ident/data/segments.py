@@ -8,11 +8,22 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..arm.model import LOW_SPEED_SCALES
 from ..errors import DataError
 from . import conditioning as cond
 from .dataset import Segment
 from .options import LogOptions
 from .rawlog import RawLog
+
+#: Default slow zone: |q'| below this many standard deviations of the velocity noise.
+SLOW_NOISE_MULTIPLE = 3.0
+
+#: ... and at least the speed a joint passes within this many cutoff periods of a reversal ...
+REVERSAL_WINDOW = 0.25
+
+#: ... and never below this fraction of the joint's RMS velocity (noise-free data still need a zone
+#: where the sign of a turning joint is undecided at the sample resolution).
+MIN_SLOW_FRACTION = 1e-3
 
 #: A torque within this fraction of its saturation level counts as clipped.
 CLIP_FRACTION = 0.999
@@ -92,8 +103,31 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     return list(zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1)))
 
 
-def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff: float | None, joint_names, warnings, counts, noise):
-    """Filter, differentiate, drop clipped samples and decimate one uniform segment -> list of segments."""
+def _period_noise(seg: Segment, tau: np.ndarray, clipped: np.ndarray, opts: LogOptions, fs: float, noise: list) -> None:
+    """Per-joint torque and position noise variance from the spread between whole periods, without
+    replacing the samples by their average (appended to `noise` as (var_tau, dof, var_q))."""
+    L = opts.period * fs
+    Li = int(round(L))
+    if abs(L - Li) > 1e-3 * max(1.0, L) or Li < 4:
+        raise DataError(f"period: {opts.period:g} s is not a whole number of samples at {fs:g} Hz ({L:.6g}); resample or fix the period")
+    P = seg.q.shape[0] // Li
+    # the first period holds the start-up transient of a closed loop: the spread is taken over the others
+    blocks = [p for p in range(1, P) if not clipped[p * Li : (p + 1) * Li].any()]
+    if len(blocks) < 2:
+        return
+    pick = np.concatenate([np.arange(p * Li, (p + 1) * Li) for p in blocks])
+    _, var_tau, Pk = cond.period_average(tau[pick], Li)
+    _, var_q, _ = cond.period_average(seg.q[pick], Li)
+    noise.append((var_tau, Pk - 1, var_q))
+
+
+def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff: float | None, joint_names, warnings, counts, noise, thresholds=None):
+    """Filter, differentiate, drop clipped samples and decimate one uniform segment -> list of segments.
+
+    `thresholds` (n,) collects, per joint, the largest slow-zone velocity used (rad/s or m/s).
+    """
+    if thresholds is None:
+        thresholds = np.zeros(seg.q.shape[1])
     m, n = seg.q.shape
     dt = float(seg.t[1] - seg.t[0])
     fs = 1.0 / dt
@@ -127,6 +161,8 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
         counts["delay_edges"] += int((~valid).sum())
     q, dq_log, ddq_log = seg.q, seg.dq, seg.ddq
     periodic = False
+    if opts.period and not opts.average:
+        _period_noise(seg, tau, clipped, opts, fs, noise)
     if opts.period and opts.average:
         L = opts.period * fs
         Li = int(round(L))
@@ -203,10 +239,11 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
     window = opts.savgol_window or cond.savgol_window(fs, cutoff or 0.25 * fs)
     out = {k: np.empty((allsel.size, n)) for k in ("q", "dq", "ddq", "tau")}
     slow = np.empty((allsel.size, n), dtype=bool)
-    if opts.reversal_margin is not None:
-        margin = int(round(opts.reversal_margin * fs))
-    else:
-        margin = int(round(0.25 / cutoff * fs)) if cutoff else 0
+    stuck = np.zeros((allsel.size, n), dtype=bool)
+    dry = np.empty((allsel.size, n, 4))
+    margin = int(round(opts.reversal_margin * fs)) if opts.reversal_margin else 0
+    sign_cut = min(cond.SIGN_CUTOFF_RATIO * cutoff, 0.4 * fs) if cutoff else None
+    stuck_len = int(round((opts.stuck_time if opts.stuck_time is not None else max(0.1, 5.0 / cutoff if cutoff else 0.1)) * fs))
 
     def filt(x):
         return cond.lowpass(x, fs, cutoff, opts.filter_order, periodic=periodic) if cutoff else np.asarray(x, float)
@@ -219,22 +256,56 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
         else:
             v = filt(dq_log[:, k])
         out["dq"][:, k] = v[allsel]
-        flag = np.abs(v) < opts.slow_velocity
-        if margin:
-            rev = np.concatenate([np.diff(np.signbit(v).astype(np.int8)) != 0, [False]])
-            flag |= _dilate(rev, margin)
-        slow[:, k] = flag[allsel]
+        # Velocity for the sign and shape of dry friction: filtered far less, so a reversal sits where
+        # the joint really turned; its dry-friction signals then go through the same low-pass as the
+        # torque (parallel filtering), and the regressor's Coulomb step is smeared as the torque's is.
+        if sign_cut and sign_cut > cutoff:
+            src = q[:, k] if need_dq else dq_log[:, k]
+            lite = cond.lowpass(src, fs, sign_cut, opts.filter_order, periodic=periodic)
+            v_sign = cond.derivative(lite, dt, "central", None, periodic) if need_dq else lite
+        else:
+            v_sign = v
         if need_ddq:
             a = cond.derivative(v, dt, opts.derivative, window, periodic)
         else:
             a = filt(ddq_log[:, k])
+        # slow zone: where the velocity is within its own noise of zero, sign(q') is a coin toss; and
+        # within a quarter cutoff period of a reversal the low-pass cannot resolve what friction does
+        # there (stick-slip, breakaway), so those speeds leave the dry-friction rows too
+        dv = v_sign - v
+        noise_v = 1.4826 * float(np.median(np.abs(dv - np.median(dv)))) if v_sign is not v else 0.0
+        still = max(SLOW_NOISE_MULTIPLE * noise_v, MIN_SLOW_FRACTION * float(np.sqrt(np.mean(v * v))))
+        turns = np.flatnonzero(np.diff(np.signbit(v).astype(np.int8)) != 0)
+        blur = REVERSAL_WINDOW / cutoff * float(np.median(np.abs(a[turns]))) if (cutoff and turns.size) else 0.0
+        thr = float(opts.slow_velocity) if opts.slow_velocity is not None else max(still, blur)
+        thresholds[k] = max(thresholds[k], thr)
+        low = (np.abs(v_sign) < thr) & (np.abs(v) < thr)
+        # stuck: inside the noise zone (whatever slow threshold the user chose) for long enough
+        quiet = (np.abs(v_sign) < still) & (np.abs(v) < still)
+        stuck_k = np.zeros(m, dtype=bool)
+        if stuck_len > 1:
+            for a_, b_ in _runs(quiet):
+                if b_ - a_ >= stuck_len:
+                    stuck_k[a_:b_] = True
+        flag = low & ~stuck_k
+        if margin:
+            rev = np.concatenate([np.diff(np.signbit(v).astype(np.int8)) != 0, [False]])
+            flag |= _dilate(rev, margin) & ~stuck_k
+        slow[:, k] = flag[allsel]
+        stuck[:, k] = stuck_k[allsel]
+        dry[:, k, 0] = filt(np.sign(v_sign))[allsel]
+        for i, sc in enumerate(LOW_SPEED_SCALES):
+            dry[:, k, 1 + i] = filt(np.tanh(v_sign / sc))[allsel]
         out["ddq"][:, k] = a[allsel]
         out["tau"][:, k] = filt(tau[:, k])[allsel]
         del qf, v, a
+    counts["slow"] += int(slow.sum())
+    counts["stuck"] += int(stuck.sum())
     segs = []
     off = 0
     for s in sel:
         sl = slice(off, off + len(s))
         off += len(s)
-        segs.append(Segment(seg.source, t[s], out["q"][sl], out["dq"][sl], out["ddq"][sl], out["tau"][sl], slow[sl]))
+        segs.append(Segment(seg.source, t[s], out["q"][sl], out["dq"][sl], out["ddq"][sl], out["tau"][sl], slow[sl], stuck[sl],
+                            dry[sl] if opts.parallel_friction else None))
     return segs

@@ -23,8 +23,9 @@ import scipy.linalg
 from scipy.linalg import lapack
 
 from ..arm.base import BaseParameters, base_parameters
-from ..arm.model import Robot, parse_terms
-from ..arm.regressor import iter_regressor
+from ..arm.dynamics import term_columns
+from ..arm.model import DRY_FRICTION_TERMS, Robot, parse_terms
+from ..arm.regressor import iter_regressor, set_term_columns
 from ..blas import single_thread_blas  # noqa: F401  (re-exported for the estimators)
 from ..errors import DataError, IdentError, NumericalError
 
@@ -121,7 +122,7 @@ class Compressor:
         """Number of base parameters b."""
         return self.base.n_base
 
-    def add(self, q, dq, ddq, tau, source: str = "", progress=None, keep=None) -> "Compressor":
+    def add(self, q, dq, ddq, tau, source: str = "", progress=None, keep=None, term_signals=None) -> "Compressor":
         """Fold one log into the triangles.
 
         Parameters
@@ -132,6 +133,9 @@ class Compressor:
         progress : optional callable ``progress(samples_done_in_this_log)``.
         keep : optional (N, n) bool: which joint equations to use (False drops joint j's equation
             at that sample only, e.g. where the velocity is too small for sign(q') to be trusted).
+        term_signals : optional (N, n, k) joint-term columns, in the order of :attr:`terms`, that
+            replace the ones the regressor computes from q', q'' (e.g. dry-friction columns
+            filtered like the torque, :func:`ident.arm.dynamics.term_columns`).
         """
         where = source or "data"
         try:
@@ -144,8 +148,15 @@ class Compressor:
                 raise DataError(f"{where}: sample mask has shape {keep.shape}, expected {q.shape}")
             if keep.all():
                 keep = None
+        k = len(self.terms)
+        if term_signals is not None:
+            term_signals = np.asarray(term_signals, dtype=float)
+            if term_signals.shape != q.shape + (k,) or not np.all(np.isfinite(term_signals)):
+                raise DataError(f"{where}: joint-term signals must be finite with shape {q.shape + (k,)}, got {term_signals.shape}")
         with single_thread_blas():
             for sl, Y in iter_regressor(self.robot, q, dq, ddq, self.terms, self.chunk):
+                if term_signals is not None:
+                    set_term_columns(Y, term_signals[sl])
                 self._fold(Y, tau[sl], None if keep is None else keep[sl])
                 if progress is not None:
                     progress(sl.stop)
@@ -224,8 +235,11 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
     base : base parameters (default: computed for robot and terms).
     progress : optional callable ``progress(samples_done, samples_total)``.
     drop_slow : leave out joint j's equation at samples a data set flags as slow for joint j
-        (``Segment.slow``: |q'| below its threshold, where sign(q') and so the Coulomb column are
-        unreliable). Default: when the Coulomb term ``fc`` is among `terms`.
+        (``Segment.slow``: |q'| within the velocity noise of zero, where sign(q') and so the
+        dry-friction columns are unreliable). Default: when a dry-friction term (fc, fcp, fcn,
+        fl1..fl3) is among `terms`. Samples a data set flags as stuck (``Segment.stuck``) always
+        leave that joint's equations; a data set's filtered dry-friction signals (``Segment.dry``)
+        replace the dry-friction columns (parallel filtering).
     slow_velocity : for array input (which carries no such flags): |q'| threshold (rad/s or m/s)
         below which a joint's equation counts as slow. Data sets keep their own flags.
     """
@@ -233,23 +247,50 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
         raise IdentError(f"slow_velocity: must be a non-negative number, got {slow_velocity}")
     comp = Compressor(robot, terms, base, chunk)
     if drop_slow is None:
-        drop_slow = "fc" in comp.terms
+        drop_slow = any(c in DRY_FRICTION_TERMS for c in comp.terms)
     segs = list(iter_segments(robot, data, with_slow=True))
-    total = sum(s[1].shape[0] for s in segs)
+    total = sum(s.q.shape[0] for s in segs)
     done = 0
-    for source, q, dq, ddq, tau, slow in segs:
+    for seg in segs:
         cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
+        slow = seg.slow
         if slow is None and slow_velocity:
-            slow = np.abs(np.asarray(dq, dtype=float)) < slow_velocity
+            slow = np.abs(np.asarray(seg.dq, dtype=float)) < slow_velocity
         keep = ~np.asarray(slow, dtype=bool) if (drop_slow and slow is not None) else None
-        comp.add(q, dq, ddq, tau, source=source, progress=cb, keep=keep)
-        done += q.shape[0]
+        if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
+            keep = ~seg.stuck if keep is None else keep & ~seg.stuck
+        signals = None if seg.dry is None else term_columns(comp.terms, seg.dq, seg.ddq, seg.dry)
+        comp.add(seg.q, seg.dq, seg.ddq, seg.tau, source=seg.source, progress=cb, keep=keep, term_signals=signals)
+        done += seg.q.shape[0]
     return comp
 
 
+@dataclass
+class SegmentData:
+    """One stretch of samples for the fit: arrays (m, n) in SI; `slow`, `stuck` (m, n) bool flags
+    or None; `dry` (m, n, 4) filtered dry-friction signals or None (see :func:`ident.arm.dynamics.term_columns`)."""
+
+    source: str
+    q: np.ndarray
+    dq: np.ndarray
+    ddq: np.ndarray
+    tau: np.ndarray
+    slow: np.ndarray | None = None
+    stuck: np.ndarray | None = None
+    dry: np.ndarray | None = None
+
+
 def iter_segments(robot: Robot, data, with_slow: bool = False):
-    """Yield ``(source, q, dq, ddq, tau)`` from a data set, an array tuple, or a list of those;
-    with `with_slow`, a sixth item: the segment's (m, n) slow-sample mask or None."""
+    """Yield the segments of a data set, an array tuple ``(q, dq, ddq, tau)``, or a list of those.
+
+    Without `with_slow`: ``(source, q, dq, ddq, tau)`` tuples. With it: :class:`SegmentData`
+    records that also carry the segment's slow and stuck flags and filtered dry-friction signals.
+    """
+    for item in _segments(robot, data):
+        yield item if with_slow else (item.source, item.q, item.dq, item.ddq, item.tau)
+
+
+def _segments(robot: Robot, data):
     if hasattr(data, "segments"):
         names = getattr(data, "joint_names", None)
         if names is not None and list(names) != list(robot.joint_names):
@@ -257,17 +298,19 @@ def iter_segments(robot: Robot, data, with_slow: bool = False):
         for k, seg in enumerate(data.segments):
             if seg.dq is None or seg.ddq is None:
                 raise DataError(f"{seg.source}: segment has no velocities/accelerations (load the logs with load_dataset, which conditions them)")
-            item = (str(getattr(seg, "source", "") or f"segment {k}"), seg.q, seg.dq, seg.ddq, seg.tau)
-            yield item + ((getattr(seg, "slow", None),) if with_slow else ())
+            yield SegmentData(str(getattr(seg, "source", "") or f"segment {k}"), seg.q, seg.dq, seg.ddq, seg.tau,
+                              getattr(seg, "slow", None), getattr(seg, "stuck", None), getattr(seg, "dry", None))
         return
     if isinstance(data, tuple) and len(data) == 4 and not hasattr(data[0], "segments") and np.ndim(data[0]) in (1, 2):
-        yield ("arrays", *data) + ((None,) if with_slow else ())
+        yield SegmentData("arrays", *data)
         return
     if isinstance(data, (list, tuple)):
         if not data:
             raise DataError("no data given")
         for k, item in enumerate(data):
-            for source, *arrays in iter_segments(robot, item, with_slow):
-                yield (source if source != "arrays" else f"arrays[{k}]", *arrays)
+            for seg in _segments(robot, item):
+                if seg.source == "arrays":
+                    seg.source = f"arrays[{k}]"
+                yield seg
         return
     raise DataError(f"data: expected a data set or (q, dq, ddq, tau) arrays, got {type(data).__name__}")

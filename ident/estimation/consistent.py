@@ -1,6 +1,7 @@
 """The physically consistent fit: a small SDP on the compressed problem (cvxpy, Clarabel).
 
-Pseudo-inertias positive semidefinite (Wensing, Kim and Slotine 2017), joint terms non-negative,
+Pseudo-inertias positive semidefinite (Wensing, Kim and Slotine 2017), viscous, armature and
+Coulomb levels non-negative, friction dissipative at every speed of a velocity grid (f(v) v >= 0),
 optional mass, COM and total-mass bounds; the log-det divergence to the prior's pseudo-inertias
 (Lee, Wensing and Park 2020) decides the directions the data cannot see (see
 :mod:`ident.estimation.estimate` for the two stages). Also the closest realization of given base
@@ -14,7 +15,7 @@ import warnings
 
 import numpy as np
 
-from ..arm.model import Robot
+from ..arm.model import DRY_FRICTION_TERMS, LOW_SPEED_SCALES, Robot
 from ..arm.parameters import PHYSICAL_TOL
 from ..arm.spatial import from_pseudo_inertia, pseudo_inertia
 from ..errors import IdentError, NumericalError
@@ -22,7 +23,24 @@ from .compress import Reduced
 from .least_squares import LeastSquares
 from .result import Bounds
 
-_NONNEG_TERMS = ("fv", "fc", "ia")
+_NONNEG_TERMS = ("fv", "fc", "ia", "fcp", "fcn")
+
+#: Velocities (rad/s or m/s) at which the consistent fit keeps joint friction dissipative, f(v) v >= 0:
+#: from well inside the slow zone to beyond what an arm's joints reach.
+DISSIPATION_GRID = np.geomspace(1e-4, 10.0, 60)
+
+
+def dissipation_rows(terms) -> tuple[np.ndarray, np.ndarray]:
+    """Rows (g, k) giving a joint's friction f(v) and f(-v) at the velocities of :data:`DISSIPATION_GRID`
+    for its k term coefficients (offset and armature are not friction: zero columns)."""
+    v = DISSIPATION_GRID
+    pos = {"fv": v, "fc": np.ones_like(v), "fcp": np.ones_like(v), "fcn": np.zeros_like(v)}
+    neg = {"fv": -v, "fc": -np.ones_like(v), "fcp": np.zeros_like(v), "fcn": -np.ones_like(v)}
+    for k, sc in enumerate(LOW_SPEED_SCALES):
+        pos[f"fl{k + 1}"] = np.tanh(v / sc)
+        neg[f"fl{k + 1}"] = -np.tanh(v / sc)
+    zero = np.zeros_like(v)
+    return (np.stack([pos.get(c, zero) for c in terms], 1), np.stack([neg.get(c, zero) for c in terms], 1))
 
 
 def divergence_metric(J0: np.ndarray) -> np.ndarray:
@@ -105,9 +123,17 @@ def consistent_fit(robot, terms, P, red_w: Reduced, wls: LeastSquares, prior_ful
     x = M @ z
     cons = []
     if nt:
+        shaped = any(c.startswith("fl") for c in terms)
         for k, code in enumerate(terms):
-            if code in _NONNEG_TERMS:
+            # with a low-speed shape, the Coulomb level alone need not be positive: the sum must
+            if code in _NONNEG_TERMS and not (shaped and code == "fc"):
                 cons.append(u[k::nt] >= 0)
+        if any(c in DRY_FRICTION_TERMS for c in terms):
+            # friction opposes motion at every speed: f(v) >= 0 for v > 0 and f(-v) <= 0, linear in the coefficients
+            Dp, Dn = dissipation_rows(terms)
+            for j in range(n):
+                cj = x[10 * n + j * nt : 10 * n + (j + 1) * nt]
+                cons += [Dp @ cj >= 0, Dn @ cj <= 0]
     for body, (lo, hi) in bounds.mass.items():
         i = robot.body_names.index(body)
         cons += [x[10 * i] >= lo, x[10 * i] <= hi]

@@ -44,7 +44,8 @@ def preliminary_delay(dataset: Dataset, robot, terms=("fv", "fc", "ia"), max_del
 
 def _preliminary_delay(dataset, robot, terms, max_delay, max_rows, sweeps):
     from ..arm.base import base_parameters
-    from ..arm.model import parse_terms
+    from ..arm.dynamics import term_columns
+    from ..arm.model import DRY_FRICTION_TERMS, parse_terms
     from ..arm.regressor import regressor
 
     terms = parse_terms(terms)
@@ -65,10 +66,14 @@ def _preliminary_delay(dataset, robot, terms, max_delay, max_rows, sweeps):
     bp = base_parameters(robot, terms)
     if g.size * robot.n < 2 * bp.n_base:
         raise NumericalError(f"preliminary delay: too few samples ({g.size}) for a fit of {bp.n_base} base parameters over +-{max_delay:g} s shifts")
-    Yb = bp.columns(regressor(robot, dataset.q[g], dataset.dq[g], dataset.ddq[g], terms))  # (R, n, b)
+    dry = dataset.dry
+    signals = None if dry is None else term_columns(terms, dataset.dq[g], dataset.ddq[g], dry[g])  # parallel filtering
+    Yb = bp.columns(regressor(robot, dataset.q[g], dataset.dq[g], dataset.ddq[g], terms, signals))  # (R, n, b)
     use = np.ones((g.size, robot.n))
-    if "fc" in terms and dataset.slow is not None:
+    if any(c in DRY_FRICTION_TERMS for c in terms) and dataset.slow is not None:
         use = (~dataset.slow[g]).astype(float)  # sign(q') is unreliable there
+    if dataset.stuck is not None:
+        use *= ~dataset.stuck[g]
     Yb *= use[:, :, None]
     R_, n, b = Yb.shape
     A = Yb.reshape(R_ * n, b)

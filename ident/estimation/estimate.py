@@ -58,7 +58,8 @@ from ..errors import IdentError, NumericalError
 from .compress import Compressor, compress
 from .consistent import consistent_fit, realization
 from .least_squares import solve_reduced, unexcited_directions
-from .result import DEFAULT_TERMS, METHODS, Bounds, ExcitationWarning, FitResult
+from .result import METHODS, Bounds, ExcitationWarning, FitResult
+from .selection import choose_terms
 
 #: Default weight of the log-det regulariser in the trade-off stage (chi-square units): like a
 #: prior that trusts each link's description values to about 100 % (common practice for CAD
@@ -83,7 +84,7 @@ def _weights(comp: Compressor, sigma: np.ndarray) -> np.ndarray:
     return 1.0 / np.maximum(sigma, floor)
 
 
-def fit(robot: Robot, data, method: str = "consistent", terms=DEFAULT_TERMS, *, bounds: Bounds | None = None, prior=None,
+def fit(robot: Robot, data, method: str = "consistent", terms="auto", *, bounds: Bounds | None = None, prior=None,
         regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None,
         slow_velocity: float | None = None) -> FitResult:
     """Identify the base parameters (and a full realization) of `robot` from logged data.
@@ -95,7 +96,10 @@ def fit(robot: Robot, data, method: str = "consistent", terms=DEFAULT_TERMS, *, 
         (N, n) arrays in SI units (rad, rad/s, rad/s^2, N m; m and N for prismatic joints), or a
         list of those (several logs are combined).
     method : "ols", "wls" or "consistent" (the default; see the module docstring).
-    terms : joint terms (codes fv, fc, fo, ia).
+    terms : joint terms (codes fv, fc, fo, ia, fcp, fcn, fl1..fl3, or groups, see
+        :func:`ident.parse_terms`); ``"auto"`` (the default) chooses the friction model from the
+        data by held-out prediction across blocks (:func:`ident.estimation.selection.choose_terms`),
+        recorded in ``FitResult.term_choice``.
     bounds : optional :class:`Bounds` (consistent fit only).
     prior : prior inertial parameters (n, 10) or a :class:`ParameterSet` (default: the robot
         description's values), used by the consistent fit's regulariser and the OLS realization.
@@ -113,8 +117,14 @@ def fit(robot: Robot, data, method: str = "consistent", terms=DEFAULT_TERMS, *, 
     FitResult
     """
     _check_method(method)
+    choice = None
+    if isinstance(terms, str) and terms.strip().lower() == "auto":
+        choice = choose_terms(robot, data)
+        terms = choice.terms
     comp = compress(robot, data, terms, base=base, progress=progress, slow_velocity=slow_velocity)
-    return fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver)
+    result = fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver)
+    result.term_choice = choice
+    return result
 
 
 def _check_method(method: str) -> None:

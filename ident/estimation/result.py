@@ -81,6 +81,8 @@ class FitResult:
     samples, sources : amount and origin of the data.
     solver : details of the consistent fit (stage, status, time), empty otherwise.
     warnings : every warning raised on the way.
+    term_choice : how the joint terms were chosen from the data when ``terms="auto"``
+        (:class:`ident.estimation.selection.TermChoice`), else None.
     """
 
     robot: Robot
@@ -98,6 +100,7 @@ class FitResult:
     sources: list[str]
     solver: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    term_choice: object = None
 
     @property
     def names(self) -> list[str]:
@@ -192,6 +195,8 @@ class FitResult:
             f"{self.base.n_base} base parameters (terms: {', '.join(self.terms) or 'none'})",
             f"Condition number (column-scaled): {self.condition:.4g}",
         ]
+        if self.term_choice is not None:
+            lines.append(self.term_choice.describe())
         if self.solver:
             lines.append("Consistent fit: " + ", ".join(f"{k} {v}" for k, v in self.solver.items() if k in ("stage", "status", "seconds")))
             if self.solver.get("stage") == "trade-off":

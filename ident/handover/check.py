@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..arm.dynamics import inverse_dynamics
-from ..arm.model import Robot
+from ..arm.model import DRY_FRICTION_TERMS, Robot
 from ..arm.parameters import PHYSICAL_TOL, ParameterSet
 from ..arm.spatial import check_physical, pseudo_inertia
 from ..errors import DataError, IdentError
@@ -111,7 +111,7 @@ def link_checks(ps: ParameterSet, tol: float = PHYSICAL_TOL) -> list[LinkCheck]:
     return out
 
 
-def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sources=()) -> Validation:
+def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sources=(), stuck=None, dry=None) -> Validation:
     """Compare measured torque with the model's prediction and check each link.
 
     Parameters
@@ -122,6 +122,10 @@ def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sour
     slow : optional (N, n) bool: samples where |q'| is below the slow-velocity threshold. They are
         left out of joint j's figures because the Coulomb term sign(q') is undefined there.
     sources : names of the logs, for the record.
+    stuck : optional (N, n) bool: stretches where a joint stands still (its friction is anything up
+        to breakaway): left out of that joint's figures.
+    dry : optional (N, n, 4) dry-friction signals filtered like the torque (``Dataset.dry``): the
+        prediction then smears each Coulomb step as the measured torque's filter did.
     """
     ps = ps.check_robot(robot)
     q, dq, ddq, tau = robot.check_states(q, dq, ddq, tau, names=("q", "dq", "ddq", "tau"))
@@ -131,14 +135,19 @@ def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sour
         raise DataError(f"validation: {t.size} times for {N} samples")
     if N < 2:
         raise DataError(f"validation: needs at least 2 samples, got {N}")
-    pred = inverse_dynamics(robot, q, dq, ddq, ps.inertial, ps.joint_params)
+    pred = inverse_dynamics(robot, q, dq, ddq, ps.inertial, ps.joint_params, dry=dry)
     used = np.ones((N, n), dtype=bool)
     notes = []
     if slow is not None:
         slow = np.asarray(slow, dtype=bool).reshape(N, n)
-        if "fc" in ps.terms and np.any(ps.joint_params["fc"] != 0):
+        if any(c in DRY_FRICTION_TERMS and np.any(ps.joint_params[c] != 0) for c in ps.terms):
             used &= ~slow
-            notes.append(f"left out {int(slow.sum())} joint samples below the slow-velocity threshold (Coulomb sign undefined)")
+            notes.append(f"left out {int(slow.sum())} joint samples within the velocity noise of zero (friction sign undefined)")
+    if stuck is not None:
+        stuck = np.asarray(stuck, dtype=bool).reshape(N, n)
+        if stuck.any():
+            used &= ~stuck
+            notes.append(f"left out {int(stuck.sum())} joint samples where a joint stands still (stuck: friction undetermined)")
     rms = np.empty(n)
     nrms = np.empty(n)
     r2 = np.empty(n)
@@ -169,7 +178,7 @@ def validate_dataset(robot: Robot, ps: ParameterSet, data) -> Validation:
     slow = getattr(data, "slow", None)
     info = getattr(data, "info", None) or {}
     srcs = [f["path"] for f in info.get("files", [])]
-    val = validate(robot, ps, data.t, data.q, data.dq, data.ddq, data.tau, slow, srcs)
+    val = validate(robot, ps, data.t, data.q, data.dq, data.ddq, data.tau, slow, srcs, getattr(data, "stuck", None), getattr(data, "dry", None))
     if info.get("cutoff"):
         # parallel filtering: the measured torque went through the positions' low-pass, which also
         # removes the part of its noise above the cutoff

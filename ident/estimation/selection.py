@@ -1,0 +1,109 @@
+"""Choosing the joint-friction model from the data: held-out prediction across blocks of the logs.
+
+Candidates (:data:`CANDIDATES`) range from the textbook viscous + Coulomb + armature to
+direction-dependent Coulomb levels and the low-speed friction shape. Each is judged by K-fold
+cross-validation over contiguous time blocks (:data:`FOLDS` per segment, so every fold spans the
+whole motion): fitted by OLS on the other folds, it predicts the held-out fold's torque, and the
+score is the held-out residual sum of squares summed over joints, each joint's in units of its
+noise variance (from the textbook candidate's fit). Every candidate is trained and scored on the
+same equations (all but stuck samples), so the scores compare. A richer candidate wins only when it
+lowers the score by more than :data:`MIN_GAIN`; otherwise the simpler one is kept.
+
+Cost: one compression of a subsample (at most :data:`MAX_ROWS` samples, every k-th) per candidate.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..arm.base import base_parameters
+from ..arm.dynamics import term_columns
+from ..arm.model import Robot, parse_terms
+from ..blas import single_thread_blas
+from ..errors import DataError, NumericalError
+from .compress import Compressor, iter_segments
+from .least_squares import solve_reduced
+
+#: The friction models tried, simplest first.
+CANDIDATES = (("fv", "fc", "ia"), ("fv", "fc", "ia", "fcp", "fcn"), ("fv", "fc", "ia", "fl1", "fl2", "fl3"),
+              ("fv", "fc", "ia", "fcp", "fcn", "fl1", "fl2", "fl3"))
+
+#: Contiguous blocks per segment for the cross-validation.
+FOLDS = 5
+
+#: A richer model must lower the held-out score by more than this fraction.
+MIN_GAIN = 0.01
+
+#: Samples used for the choice, at most (evenly strided).
+MAX_ROWS = 60_000
+
+
+@dataclass
+class TermChoice:
+    """The chosen terms and the held-out score of every candidate (lower is better; chi-square units)."""
+
+    terms: tuple[str, ...]
+    scores: dict
+    folds: int
+    rows: int
+
+    def describe(self) -> str:
+        parts = ", ".join(f"{','.join(t)} {s:.6g}" for t, s in self.scores.items())
+        return f"friction terms chosen by {self.folds}-fold held-out prediction on {self.rows} samples: {','.join(self.terms)} (scores: {parts})"
+
+
+def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, max_rows: int = MAX_ROWS) -> TermChoice:
+    """Pick the joint-term set that best predicts held-out blocks of `data` (see the module docstring).
+
+    `data` as for :func:`ident.fit`. Returns a :class:`TermChoice`.
+    """
+    cands = [parse_terms(c) for c in candidates]
+    if not cands:
+        raise DataError("term choice: no candidate term sets")
+    segs = list(iter_segments(robot, data, with_slow=True))
+    total = sum(s.q.shape[0] for s in segs)
+    if total == 0:
+        raise DataError("term choice: no samples")
+    stride = max(1, int(np.ceil(total / max_rows)))
+    scores = {}
+    sigma2 = None
+    with single_thread_blas():
+        for terms in cands:
+            bp = base_parameters(robot, terms)
+            comps = [Compressor(robot, terms, bp) for _ in range(folds)]
+            for seg in segs:
+                m = seg.q.shape[0]
+                idx = np.arange(0, m, stride)
+                if idx.size < folds:
+                    continue
+                keep = None if seg.stuck is None else ~seg.stuck[idx]
+                cols = None if seg.dry is None else term_columns(terms, seg.dq[idx], seg.ddq[idx], seg.dry[idx])
+                for f, part in enumerate(np.array_split(np.arange(idx.size), folds)):
+                    sl = part
+                    comps[f].add(seg.q[idx][sl], seg.dq[idx][sl], seg.ddq[idx][sl], seg.tau[idx][sl], source=seg.source,
+                                 keep=None if keep is None else keep[sl], term_signals=None if cols is None else cols[sl])
+            if any(c.samples == 0 for c in comps):
+                raise DataError("term choice: too few samples for the held-out folds")
+            rss = np.zeros(robot.n)
+            for f in range(folds):
+                train = Compressor(robot, terms, bp)
+                for g in range(folds):
+                    if g != f:
+                        train.merge(comps[g])
+                try:
+                    beta = solve_reduced(train.reduce(), bp.names).beta
+                except NumericalError:
+                    rss += np.inf  # a model the training folds cannot determine predicts nothing
+                    break
+                rss += comps[f].joint_rss(beta)
+            if sigma2 is None:
+                rows = sum(c.rows for c in comps)
+                sigma2 = np.maximum(rss / np.maximum(rows, 1), 1e-300)
+            scores[terms] = float(np.sum(rss / sigma2))
+    best = cands[0]
+    for terms in cands[1:]:
+        if scores[terms] < scores[best] * (1.0 - MIN_GAIN):
+            best = terms
+    return TermChoice(best, scores, folds, int(np.ceil(total / stride)))
