@@ -45,11 +45,12 @@ def test_fit_writes_a_parameter_file(demo, tmp_path, method, capsys):
     bp = base_parameters(robot, ps.terms)
     np.testing.assert_allclose(bp.project(ps.vector()), ps.base.values, rtol=1e-8, atol=1e-10)
     # The demo's simulated truth: the large first moments that carry gravity (at least 0.05 kg m,
-    # rel. std below 1 %) within 2 %. (Friction is left out: how well it comes out depends on the log
-    # conditioning, which is tested with the logs.)
+    # rel. std below 5 % by the block jackknife, about 1 % by the classic formula) within 2 %.
+    # (Friction is left out: how well it comes out depends on the log conditioning, which is
+    # tested with the logs.)
     beta_true = bp.project(truth.vector())
     gravity = np.array([n.rstrip("R").endswith((".mx", ".my", ".mz")) for n in ps.base.names])
-    good = gravity & (ps.base.std < 0.01 * np.abs(ps.base.values)) & (np.abs(ps.base.values) >= 0.05)
+    good = gravity & (ps.base.std < 0.05 * np.abs(ps.base.values)) & (np.abs(ps.base.values) >= 0.05)
     assert good.sum() >= 3
     np.testing.assert_allclose(ps.base.values[good], beta_true[good], rtol=0.02)
     if method == "consistent":

@@ -59,6 +59,7 @@ from .compress import Compressor, compress
 from .consistent import consistent_fit, realization
 from .least_squares import solve_reduced, unexcited_directions
 from .result import DEFAULT_TERMS, METHODS, Bounds, ExcitationWarning, FitResult
+from .uncertainty import UNCERTAINTY, block_jackknife, compressor_grams
 
 #: Default weight of the log-det regulariser in the trade-off stage (chi-square units): like a
 #: prior that trusts each link's description values to about 100 % (common practice for CAD
@@ -85,7 +86,7 @@ def _weights(comp: Compressor, sigma: np.ndarray) -> np.ndarray:
 
 def fit(robot: Robot, data, method: str = "consistent", terms=DEFAULT_TERMS, *, bounds: Bounds | None = None, prior=None,
         regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None,
-        slow_velocity: float | None = None) -> FitResult:
+        slow_velocity: float | None = None, uncertainty: str = "blocks") -> FitResult:
     """Identify the base parameters (and a full realization) of `robot` from logged data.
 
     Parameters
@@ -107,14 +108,20 @@ def fit(robot: Robot, data, method: str = "consistent", terms=DEFAULT_TERMS, *, 
         below this (rad/s or m/s) are left out, because sign(q') is unreliable there. Data sets
         carry their own flags (``Segment.slow``, set when the logs are loaded); for arrays, give
         a threshold here (default: keep every sample).
+    uncertainty : how the standard deviations are computed: "blocks" (the default: delete-one
+        jackknife over contiguous time blocks, :mod:`ident.estimation.uncertainty`; honest on
+        filtered, closed-loop data) or "classic" (s^2 (W^T W)^-1, which assumes white residuals).
 
     Returns
     -------
     FitResult
     """
     _check_method(method)
-    comp = compress(robot, data, terms, base=base, progress=progress, slow_velocity=slow_velocity)
-    return fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver)
+    _check_uncertainty(uncertainty)
+    comp = compress(robot, data, terms, base=base, progress=progress, slow_velocity=slow_velocity,
+                    keep_blocks=(uncertainty == "blocks"))
+    return fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver,
+                          uncertainty=uncertainty)
 
 
 def _check_method(method: str) -> None:
@@ -122,16 +129,23 @@ def _check_method(method: str) -> None:
         raise IdentError(f"method: '{method}' is not one of {', '.join(METHODS)}")
 
 
+def _check_uncertainty(uncertainty: str) -> None:
+    if uncertainty not in UNCERTAINTY:
+        raise IdentError(f"uncertainty: '{uncertainty}' is not one of {', '.join(UNCERTAINTY)}")
+
+
 def fit_compressed(comp: Compressor, method: str = "consistent", *, bounds: Bounds | None = None, prior=None,
-                   regularization: float = REGULARIZATION, solver: str = "CLARABEL") -> FitResult:
+                   regularization: float = REGULARIZATION, solver: str = "CLARABEL", uncertainty: str = "blocks") -> FitResult:
     """:func:`fit` on data already compressed into a :class:`ident.estimation.compress.Compressor`."""
     # The matrices here are a few dozen wide: BLAS threads only cost synchronisation.
     with single_thread_blas():
-        return _fit_compressed(comp, method, bounds, prior, regularization, solver)
+        return _fit_compressed(comp, method, bounds, prior, regularization, solver, uncertainty)
 
 
-def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization: float, solver: str) -> FitResult:
+def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization: float, solver: str,
+                    uncertainty: str = "blocks") -> FitResult:
     _check_method(method)
+    _check_uncertainty(uncertainty)
     robot, bp = comp.robot, comp.base
     bounds = bounds or Bounds()
     if not bounds.empty() and method != "consistent":
@@ -151,12 +165,15 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
         msgs.append(msg)
         warnings.warn(msg, ExcitationWarning, stacklevel=2)
     result = ls
+    weights = None
     if method in ("wls", "consistent"):
         # One refinement: sigma_j from the OLS residuals is inflated on a quiet joint by the
         # error the noisy joints put into the shared parameters; the WLS residuals fix that.
         result = solve_reduced(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
         sigma = _joint_sigma(comp, result.beta)
-        result = solve_reduced(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
+        weights = _weights(comp, sigma)
+        result = solve_reduced(comp.reduce(weights), names, allow_deficient=(method == "consistent"))
+    unc = _uncertainty(comp, result, weights, uncertainty, msgs)
     P = bp.projection
     solver_info: dict = {}
     if method == "consistent":
@@ -165,18 +182,16 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
         if solver_info.get("status") == "optimal_inaccurate":
             msgs.append(f"consistent fit: solver {solver} reports an inaccurate optimum (check the bounds and the data)")
         beta = P @ full
-        cov = result.cov
     else:
         beta = result.beta
-        cov = result.cov
         full = realization(robot, P, beta, prior_full)
     if result.rank_deficient:
         msgs.append("the data are rank deficient: no covariance; the consistent fit's prior decides the unexcited directions")
     rms = np.sqrt(comp.joint_rss(beta) / np.maximum(comp.rows, 1))
     res = FitResult(
-        robot=robot, terms=comp.terms, base=bp, method=method, beta=beta, cov=cov, full=full, sigma=sigma,
+        robot=robot, terms=comp.terms, base=bp, method=method, beta=beta, cov=unc.pop("cov"), full=full, sigma=sigma,
         residual_rms=rms, condition=ls.condition, unexcited=unexcited, samples=comp.samples,
-        sources=list(comp.sources), solver=solver_info, warnings=msgs,
+        sources=list(comp.sources), solver=solver_info, warnings=msgs, uncertainty=unc,
     )
     bad = [b for b, ok in zip(robot.body_names, res.physical) if not ok]
     if bad and method == "consistent":
@@ -189,6 +204,25 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
     if bad:
         res.warnings.append(f"physically impossible link(s) in the realization: {', '.join(bad)} (pseudo-inertia not positive semidefinite; use method 'consistent')")
     return res
+
+
+def _uncertainty(comp: Compressor, result, weights, uncertainty: str, msgs: list[str]) -> dict:
+    """Covariance of the (unconstrained, OLS or WLS) estimate and how it was obtained: {"cov", "method", ...}."""
+    classic = {"cov": result.cov, "method": "classic", "formula": "s^2 (W^T W)^-1 (white residuals assumed)"}
+    if uncertainty == "classic" or result.rank_deficient:
+        return classic
+    if comp.blocks is None:
+        msgs.append("no time blocks were kept with the compressed data: classic standard deviations (likely too small)")
+        return classic
+    cov, why = block_jackknife(compressor_grams(comp, weights), result.beta)
+    if cov is None:
+        msgs.append(f"block jackknife not possible ({why}): classic standard deviations (likely too small)")
+        return classic
+    secs = np.array(comp.blocks.seconds, float)
+    out = {"cov": cov, "method": "blocks", "formula": "delete-one-block jackknife (Kunsch 1989)", "blocks": len(comp.blocks)}
+    if np.all(np.isfinite(secs)):
+        out["block_seconds"] = float(np.median(secs))
+    return out
 
 
 def _prior_vector(robot: Robot, terms, prior) -> np.ndarray:
