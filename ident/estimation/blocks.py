@@ -35,14 +35,15 @@ MIN_BLOCKS = 20
 MAX_BLOCKS = 64
 
 
-def block_length(segment_samples, dt=None, cutoff: float | None = None, min_blocks: int = MIN_BLOCKS) -> int:
+def block_length(segment_samples, dt=None, cutoff: float | None = None, min_blocks: int | None = None) -> int:
     """Samples per block for data made of segments of `segment_samples` (list of ints).
 
     dt : sample step (s) of the segments (their median); cutoff : the low-pass cutoff (Hz) the
     data were conditioned with (None or 0: no filter, so only the count rule applies).
     Returns the block length in samples (>= 1): at least ``CUTOFF_PERIODS / cutoff`` seconds,
-    shortened so the segments hold at least `min_blocks` blocks.
+    shortened so the segments hold at least `min_blocks` (default :data:`MIN_BLOCKS`) blocks.
     """
+    min_blocks = MIN_BLOCKS if min_blocks is None else int(min_blocks)
     sizes = [int(s) for s in segment_samples if int(s) > 0]
     total = sum(sizes)
     if total == 0:

@@ -3,12 +3,16 @@
 All three work on the compressed problem of :mod:`ident.estimation.compress` (per-joint triangles of
 ``[Y_b | tau]``), so they cost the same whatever the number of samples.
 
-* ``ols``: beta = argmin ||Y_b beta - tau||^2, covariance sigma^2 (Y_b^T Y_b)^-1 with
+* ``ols``: beta = argmin ||Y_b beta - tau||^2; classic covariance sigma^2 (Y_b^T Y_b)^-1 with
   sigma^2 = RSS / (rows - b).
 * ``wls``: each joint's rows are weighted by 1/sigma_j, sigma_j estimated from that joint's OLS
   residuals (Gautier 1997), then once more from the first WLS fit's residuals (the OLS residual
-  of a quiet joint is inflated by the noisier joints); covariance s^2 (W^T W)^-1 of the weighted
-  problem (s^2 ~ 1).
+  of a quiet joint is inflated by the noisier joints); classic covariance s^2 (W^T W)^-1 of the
+  weighted problem (s^2 ~ 1).
+* Standard deviations: by default (``uncertainty="blocks"``) the delete-one-block jackknife of the
+  OLS or WLS estimate over contiguous time blocks (:mod:`ident.estimation.uncertainty`); the
+  classic formula assumes white residuals and is several times too small on filtered closed-loop
+  data. ``uncertainty="classic"`` keeps it (and ``FitResult.cov_classic`` always holds it).
 * ``consistent``: full per-body parameters whose 4x4 pseudo-inertias are positive semidefinite
   (Wensing, Kim and Slotine 2017), friction and armature coefficients >= 0, optional mass, COM
   and total-mass bounds; solved with cvxpy (Clarabel by default) on the WLS-weighted compressed
@@ -191,7 +195,7 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
     res = FitResult(
         robot=robot, terms=comp.terms, base=bp, method=method, beta=beta, cov=unc.pop("cov"), full=full, sigma=sigma,
         residual_rms=rms, condition=ls.condition, unexcited=unexcited, samples=comp.samples,
-        sources=list(comp.sources), solver=solver_info, warnings=msgs, uncertainty=unc,
+        sources=list(comp.sources), solver=solver_info, warnings=msgs, uncertainty=unc, cov_classic=result.cov,
     )
     bad = [b for b, ok in zip(robot.body_names, res.physical) if not ok]
     if bad and method == "consistent":

@@ -84,6 +84,8 @@ class FitResult:
     warnings : every warning raised on the way.
     uncertainty : how `cov` was obtained: {"method": "blocks" | "classic", "formula", and for
         blocks "blocks" (count) and "block_seconds" (median duration)}.
+    cov_classic : (b, b) the classic covariance s^2 (W^T W)^-1 of the same estimate, kept for
+        comparison (the summary prints the median ratio of the two standard deviations).
     """
 
     robot: Robot
@@ -102,6 +104,13 @@ class FitResult:
     solver: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     uncertainty: dict = field(default_factory=lambda: {"method": "classic"})
+    cov_classic: np.ndarray | None = None
+
+    @property
+    def std_classic(self) -> np.ndarray:
+        """(b,) standard deviations by the classic formula s^2 (W^T W)^-1 (for comparison)."""
+        cov = self.cov if self.cov_classic is None else self.cov_classic
+        return np.sqrt(np.maximum(np.diag(cov), 0.0))
 
     @property
     def names(self) -> list[str]:
@@ -214,7 +223,14 @@ class FitResult:
         u = self.uncertainty
         if u.get("method") == "blocks":
             dur = f", median {u['block_seconds']:.3g} s each" if "block_seconds" in u else ""
-            return f"block jackknife over {u.get('blocks')} contiguous time blocks{dur} (counts correlated residuals and model error)"
+            ratio = ""
+            if self.cov_classic is not None:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    r = self.std / self.std_classic
+                r = r[np.isfinite(r)]
+                if r.size:
+                    ratio = f"; median {np.median(r):.2g}x the classic formula's"
+            return f"block jackknife over {u.get('blocks')} contiguous time blocks{dur} (counts correlated residuals and model error{ratio})"
         return "classic s^2 (W^T W)^-1 (assumes white, equal-variance residuals; too small on filtered closed-loop data)"
 
     def summary(self) -> str:
