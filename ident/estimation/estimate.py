@@ -225,7 +225,7 @@ def _uncertainty(comp: Compressor, result, weights, uncertainty: str, msgs: list
     secs = np.array(comp.blocks.seconds, float)
     out = {"cov": cov, "method": "blocks", "formula": "delete-one-block jackknife (Kunsch 1989)", "blocks": len(comp.blocks)}
     if np.all(np.isfinite(secs)):
-        out["block_seconds"] = float(np.median(secs))
+        out["block_seconds"] = round(float(np.median(secs)), 6)
     return out
 
 
