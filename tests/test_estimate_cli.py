@@ -39,17 +39,20 @@ def test_fit_writes_a_parameter_file(demo, tmp_path, method, capsys):
     text = capsys.readouterr().out
     assert "rel.std %" in text and f"wrote {out}" in text
     ps = load_parameters(out, robot)
-    assert ps.method["name"] == method and ps.terms == ("fv", "fc", "ia")
+    # the default terms are chosen from the data: the textbook three at least, and the choice recorded
+    assert ps.method["name"] == method and {"fv", "fc", "ia"} <= set(ps.terms)
+    assert "held-out prediction" in ps.method["term_choice"]
     assert ps.data["files"] == [LOG]
     assert ps.diagnostics["condition_number"] > 1
     bp = base_parameters(robot, ps.terms)
     np.testing.assert_allclose(bp.project(ps.vector()), ps.base.values, rtol=1e-8, atol=1e-10)
     # The demo's simulated truth: the large first moments that carry gravity (at least 0.05 kg m,
-    # rel. std below 1 %) within 2 %. (Friction is left out: how well it comes out depends on the log
-    # conditioning, which is tested with the logs.)
-    beta_true = bp.project(truth.vector())
+    # rel. std below 5 % by the block jackknife, about 1 % by the classic formula) within 2 %.
+    # (Friction is left out: how well it comes out depends on the log conditioning, which is
+    # tested with the logs.)
+    beta_true = bp.project(truth.vector(ps.terms))
     gravity = np.array([n.rstrip("R").endswith((".mx", ".my", ".mz")) for n in ps.base.names])
-    good = gravity & (ps.base.std < 0.01 * np.abs(ps.base.values)) & (np.abs(ps.base.values) >= 0.05)
+    good = gravity & (ps.base.std < 0.05 * np.abs(ps.base.values)) & (np.abs(ps.base.values) >= 0.05)
     assert good.sum() >= 3
     np.testing.assert_allclose(ps.base.values[good], beta_true[good], rtol=0.02)
     if method == "consistent":

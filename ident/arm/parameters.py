@@ -86,11 +86,14 @@ class ParameterSet:
         """Number of joints (= bodies)."""
         return len(self.joint_names)
 
-    def vector(self) -> np.ndarray:
-        """Full parameter vector (10 n + n len(terms),) in regressor column order."""
+    def vector(self, terms=None) -> np.ndarray:
+        """Full parameter vector (10 n + n len(terms),) in regressor column order, for this set's
+        terms or for the given ones (terms this set does not carry count as zero)."""
+        terms = self.terms if terms is None else parse_terms(terms)
         cols = [self.inertial.reshape(-1)]
-        if self.terms:
-            cols.append(np.stack([self.joint_params[c] for c in self.terms], axis=1).reshape(-1))
+        if terms:
+            zero = np.zeros(self.inertial.shape[0])
+            cols.append(np.stack([self.joint_params.get(c, zero) for c in terms], axis=1).reshape(-1))
         return np.concatenate(cols)
 
     def physical(self, tol: float = PHYSICAL_TOL) -> np.ndarray:

@@ -34,7 +34,6 @@ ROBOT_FILE = "sprout6.urdf"
 TRUTH_FILE = "sprout6_truth.yaml"
 FIT_LOG = "sprout6_excite.csv"
 HELDOUT_LOG = "sprout6_heldout.csv"
-TERMS = ("fv", "fc", "ia")
 #: Conditioning of the demo logs: the defaults a user gets (cutoff chosen from the data, slow zone
 #: from the velocity noise, dry-friction columns filtered like the torque).
 LOG_OPTIONS: dict = {}
@@ -85,10 +84,10 @@ def run(args) -> int:
     held = load_dataset([src / HELDOUT_LOG], robot=robot, options=LOG_OPTIONS)
     # the fit leaves out each joint's equation where that joint is slower than the slow-velocity
     # threshold (sign(q') of the Coulomb term undefined); the check does the same
-    say(f"1/4 fit: consistent method, terms {', '.join(TERMS)}, {fit_data.n_samples} samples of {FIT_LOG}")
+    say(f"1/4 fit: consistent method, friction terms chosen from the data, {fit_data.n_samples} samples of {FIT_LOG}")
     with warnings.catch_warnings(), Progress(fit_data.n_samples, "fit", enabled=talk) as bar:
         warnings.simplefilter("ignore")  # the fit records its warnings in the result; they go to the report
-        result = fit(robot, fit_data, method="consistent", terms=TERMS, progress=lambda done, total: bar.update(done, "compressing"))
+        result = fit(robot, fit_data, method="consistent", progress=lambda done, total: bar.update(done, "compressing"))
     ps = result.to_parameter_set(data={"logs": [FIT_LOG], "conditioning": dict(LOG_OPTIONS)})
     params_path = out / "sprout6_identified.yaml"
     save_parameters(params_path, ps)

@@ -27,7 +27,8 @@ examples:
 Methods: ols (least squares), wls (each joint weighted by its noise level from the OLS residuals),
 consistent (physically realizable links: pseudo-inertias positive semidefinite, friction and
 armature >= 0; the description's inertial values decide only what the data cannot see).
-The table lists each base parameter with its standard deviation; 'poor' flags a relative standard
+The table lists each base parameter with its standard deviation (by default a jackknife over contiguous
+time blocks, see --uncertainty); 'poor' flags a relative standard
 deviation above 10 %. The parameter file holds per-link mass, COM and inertia at the COM, per-joint
 terms, the base parameters with their regroupings, the method, the data and the diagnostics.
 """
@@ -56,6 +57,9 @@ def add_parser(sub) -> None:
     g.add_argument("--com", action="append", default=[], metavar="LINK=X0,Y0,Z0:X1,Y1,Z1", help="box holding a link's COM, m in the link frame (repeatable)")
     g.add_argument("--total-mass", type=float, metavar="KG", help="known total mass of the identified links")
     g.add_argument("--solver", default="CLARABEL", metavar="NAME", help="cvxpy solver (default CLARABEL)")
+    p.add_argument("--uncertainty", choices=("blocks", "classic"), default="blocks",
+                   help="standard deviations: blocks (jackknife over contiguous time blocks, counts correlated residuals "
+                   "and model error; the default) or classic (s^2 (W^T W)^-1, assumes white residuals)")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.add_argument("--json", action="store_true", help="print the base parameters and diagnostics as JSON")
     p.set_defaults(func=run)
@@ -103,7 +107,7 @@ def run(args) -> int:
         # file); Python's two-line warning format with a source path is no use on a command line.
         warnings.simplefilter("always")
         res = fit(robot, data, args.method, terms, bounds=bounds, prior=prior, regularization=args.regularization,
-                  solver=args.solver, progress=lambda done, total: bar.update(done))
+                  solver=args.solver, progress=lambda done, total: bar.update(done), uncertainty=args.uncertainty)
     known = {" ".join(w.split()) for w in res.warnings}
     for w in caught:
         msg = " ".join(str(w.message).split())
@@ -117,7 +121,20 @@ def run(args) -> int:
                     "data_warnings": list(data.warnings)})
     elif not args.quiet:
         print(res.summary())
+        print(conditioning_line(data))
         for w in data.warnings:
             print(f"warning: {w}")
         print(f"wrote {args.out}")
     return 0
+
+
+def conditioning_line(data) -> str:
+    """One line on how the logs were conditioned and how many joint samples each rule left out."""
+    info = data.info
+    counts = info.get("counts", {})
+    rule = (info.get("cutoff_rule") or {}).get("rule", "given")
+    cut = info.get("cutoff")
+    return (f"conditioning: low-pass {cut:.4g} Hz ({rule}); left out {counts.get('slow', 0)} joint samples in the slow zone "
+            f"(dry-friction rows only), {counts.get('stuck', 0)} stuck, {counts.get('trimmed', 0)} trimmed at segment ends, "
+            f"{counts.get('clipped', 0)} clipped" if cut else "conditioning: no low-pass filter")
+

@@ -39,6 +39,9 @@ def add_parser(sub) -> None:
     p.add_argument("--frame", metavar="FRAME", help="express the result in this link frame of that body, e.g. a flange (default: the body frame)")
     add_log_arguments(p)
     p.add_argument("--solver", default="CLARABEL", metavar="NAME", help="cvxpy solver (default CLARABEL)")
+    p.add_argument("--uncertainty", choices=("blocks", "classic"), default="blocks",
+                   help="standard deviations: blocks (jackknife over contiguous time blocks, counts correlated residuals "
+                   "and model error; the default) or classic (s^2 (W^T W)^-1, assumes white residuals)")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.add_argument("--json", action="store_true", help="print the result as JSON")
     p.set_defaults(func=run)
@@ -51,7 +54,7 @@ def run(args) -> int:
     show = not (args.quiet or args.json)
     with Progress(data.n_samples, "payload", enabled=show) as bar:
         res = identify_payload(robot, ps, data, body=args.body, frame=args.frame, solver=args.solver,
-                               progress=lambda done, total: bar.update(done))
+                               progress=lambda done, total: bar.update(done), uncertainty=args.uncertainty)
     res.sources = [str(f) for f in args.logs]
     save_payload(args.out, res)
     if args.json:

@@ -28,6 +28,7 @@ from ..arm.model import DRY_FRICTION_TERMS, Robot, parse_terms
 from ..arm.regressor import iter_regressor, set_term_columns
 from ..blas import single_thread_blas  # noqa: F401  (re-exported for the estimators)
 from ..errors import DataError, IdentError, NumericalError
+from .blocks import MAX_BLOCKS, BlockStore, block_length, block_ranges, merge_triangles
 
 #: Samples per regressor chunk during compression (a 7-joint, 91-column chunk is ~42 MB).
 CHUNK = 8192
@@ -93,15 +94,23 @@ class Compressor:
     terms : joint-term codes carried by the regressor.
     base : base parameters to use (default: :func:`ident.arm.base.base_parameters` of robot, terms).
     chunk : samples per regressor chunk.
+    block : samples per time block kept for the block jackknife (default: each log added is cut
+        into :data:`ident.estimation.blocks.MIN_BLOCKS` blocks; :func:`compress` applies the block
+        rule of :mod:`ident.estimation.blocks`).
+    keep_blocks : keep the per-block triangles (False: totals only; no block jackknife).
+    max_blocks : cap on the number of blocks kept (adjacent blocks are merged beyond it).
 
     Attributes
     ----------
     triangles : list of (c_j + 1, c_j + 1) upper triangles, one per joint, over the columns
         ``columns[j]`` of the base set plus the torque.
     samples : total samples added; sources : labels of the logs added, in order.
+    blocks : :class:`ident.estimation.blocks.BlockStore` of per-block triangles (None without
+        `keep_blocks`); the totals are the merge of the blocks.
     """
 
-    def __init__(self, robot: Robot, terms=(), base: BaseParameters | None = None, chunk: int = CHUNK):
+    def __init__(self, robot: Robot, terms=(), base: BaseParameters | None = None, chunk: int = CHUNK,
+                 block: int | None = None, keep_blocks: bool = True, max_blocks: int = MAX_BLOCKS):
         self.robot = robot
         self.terms = parse_terms(terms)
         self.base = base if base is not None else base_parameters(robot, self.terms)
@@ -116,13 +125,20 @@ class Compressor:
         self.rows = np.zeros(robot.n, dtype=np.int64)
         self.sources: list[str] = []
         self.sum_tau2 = np.zeros(robot.n)
+        if block is not None and block < 1:
+            raise IdentError(f"block: must be a positive number of samples, got {block}")
+        if max_blocks < 2:
+            raise IdentError(f"max_blocks: must be at least 2, got {max_blocks}")
+        self.block = None if block is None else int(block)
+        self.blocks = BlockStore(max_blocks) if keep_blocks else None
 
     @property
     def n_base(self) -> int:
         """Number of base parameters b."""
         return self.base.n_base
 
-    def add(self, q, dq, ddq, tau, source: str = "", progress=None, keep=None, term_signals=None) -> "Compressor":
+    def add(self, q, dq, ddq, tau, source: str = "", progress=None, keep=None, term_signals=None, block: int | None = None,
+            dt: float | None = None) -> "Compressor":
         """Fold one log into the triangles.
 
         Parameters
@@ -136,6 +152,8 @@ class Compressor:
         term_signals : optional (N, n, k) joint-term columns, in the order of :attr:`terms`, that
             replace the ones the regressor computes from q', q'' (e.g. dry-friction columns
             filtered like the torque, :func:`ident.arm.dynamics.term_columns`).
+        block : samples per time block of this log (default: the compressor's `block`, else a
+            twentieth of the log). dt : sample step (s), only to report block durations.
         """
         where = source or "data"
         try:
@@ -154,12 +172,20 @@ class Compressor:
             if term_signals.shape != q.shape + (k,) or not np.all(np.isfinite(term_signals)):
                 raise DataError(f"{where}: joint-term signals must be finite with shape {q.shape + (k,)}, got {term_signals.shape}")
         with single_thread_blas():
-            for sl, Y in iter_regressor(self.robot, q, dq, ddq, self.terms, self.chunk):
-                if term_signals is not None:
-                    set_term_columns(Y, term_signals[sl])
-                self._fold(Y, tau[sl], None if keep is None else keep[sl])
-                if progress is not None:
-                    progress(sl.stop)
+            ts = term_signals
+            if self.blocks is None:
+                self._fold_range(self.triangles, q, dq, ddq, tau, keep, progress, 0, ts)
+            else:
+                N = q.shape[0]
+                L = block if block is not None else (self.block or block_length([N]))
+                step = float(dt) if dt else float("nan")
+                for a, b in block_ranges(N, L):
+                    tri = [np.zeros_like(T) for T in self.triangles]
+                    kb = None if keep is None else keep[a:b]
+                    self._fold_range(tri, q[a:b], dq[a:b], ddq[a:b], tau[a:b], kb, progress, a, None if ts is None else ts[a:b])
+                    rows = np.full(self.robot.n, b - a, dtype=np.int64) if kb is None else kb.sum(axis=0)
+                    self.triangles = [merge_triangles(T, B) for T, B in zip(self.triangles, tri)]
+                    self.blocks.append(tri, rows, (b - a) * step)
         self.samples += q.shape[0]
         self.rows += q.shape[0] if keep is None else keep.sum(axis=0)
         self.sources.append(source)
@@ -167,22 +193,38 @@ class Compressor:
         self.sum_tau2 += t2.sum(axis=0)
         return self
 
-    def _fold(self, Y: np.ndarray, tau: np.ndarray, keep=None) -> None:
+    def _fold_range(self, tri: list[np.ndarray], q, dq, ddq, tau, keep, progress, offset: int, term_signals=None) -> None:
+        """Fold the samples of one stretch into the per-joint triangles `tri` (in place)."""
+        for sl, Y in iter_regressor(self.robot, q, dq, ddq, self.terms, self.chunk):
+            if term_signals is not None:
+                set_term_columns(Y, term_signals[sl])
+            self._fold(tri, Y, tau[sl], None if keep is None else keep[sl])
+            if progress is not None:
+                progress(offset + sl.stop)
+
+    def _fold(self, tri: list[np.ndarray], Y: np.ndarray, tau: np.ndarray, keep=None) -> None:
         indep = self.base.independent
         for j, cols in enumerate(self.columns):
             if keep is None:
-                self.triangles[j] = fold_rows(self.triangles[j], Y[:, j, indep[cols]], tau[:, j])
+                tri[j] = fold_rows(tri[j], Y[:, j, indep[cols]], tau[:, j])
             else:
                 rows = np.flatnonzero(keep[:, j])
                 if rows.size:
-                    self.triangles[j] = fold_rows(self.triangles[j], Y[rows, j][:, indep[cols]], tau[rows, j])
+                    tri[j] = fold_rows(tri[j], Y[rows, j][:, indep[cols]], tau[rows, j])
 
     def merge(self, other: "Compressor") -> "Compressor":
-        """Fold another compressor's triangles (same robot, terms and base set) into this one."""
+        """Fold another compressor's triangles (same robot, terms and base set) into this one.
+
+        Its time blocks are appended after this one's (both must keep blocks, or the result keeps none).
+        """
         if other.base.names != self.base.names or other.robot.joint_names != self.robot.joint_names:
             raise IdentError("cannot merge compressed data of different models or base sets")
         for j in range(self.robot.n):
-            self.triangles[j] = np.triu(scipy.linalg.qr(np.vstack([self.triangles[j], other.triangles[j]]), mode="r", check_finite=False)[0][: self.columns[j].size + 1])
+            self.triangles[j] = merge_triangles(self.triangles[j], other.triangles[j])
+        if self.blocks is not None and other.blocks is not None:
+            self.blocks.extend(other.blocks)
+        else:
+            self.blocks = None
         self.samples += other.samples
         self.rows += other.rows
         self.sources += other.sources
@@ -223,7 +265,8 @@ class Compressor:
 
 
 def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, progress=None, chunk: int = CHUNK,
-             drop_slow: bool | None = None, slow_velocity: float | None = None) -> Compressor:
+             drop_slow: bool | None = None, slow_velocity: float | None = None, block: int | None = None,
+             keep_blocks: bool = True) -> Compressor:
     """Compress one or several logs into a :class:`Compressor`.
 
     Parameters
@@ -242,14 +285,23 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
         replace the dry-friction columns (parallel filtering).
     slow_velocity : for array input (which carries no such flags): |q'| threshold (rad/s or m/s)
         below which a joint's equation counts as slow. Data sets keep their own flags.
+    block : samples per time block for the block jackknife (default: the rule of
+        :func:`ident.estimation.blocks.block_length` from the data set's cutoff and sample step,
+        or a twentieth of the data for arrays). keep_blocks : False keeps the totals only.
     """
     if slow_velocity is not None and not (np.isfinite(slow_velocity) and slow_velocity >= 0):
         raise IdentError(f"slow_velocity: must be a non-negative number, got {slow_velocity}")
-    comp = Compressor(robot, terms, base, chunk)
+    comp = Compressor(robot, terms, base, chunk, keep_blocks=keep_blocks)
     if drop_slow is None:
         drop_slow = any(c in DRY_FRICTION_TERMS for c in comp.terms)
     segs = list(iter_segments(robot, data, with_slow=True))
     total = sum(s.q.shape[0] for s in segs)
+    dt, cutoff = data_timing(data)
+    if block is None:
+        block = block_length([s.q.shape[0] for s in segs], dt, cutoff)
+    elif block < 1:
+        raise IdentError(f"block: must be a positive number of samples, got {block}")
+    comp.block = int(block)
     done = 0
     for seg in segs:
         cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
@@ -260,7 +312,7 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
         if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
             keep = ~seg.stuck if keep is None else keep & ~seg.stuck
         signals = None if seg.dry is None else term_columns(comp.terms, seg.dq, seg.ddq, seg.dry)
-        comp.add(seg.q, seg.dq, seg.ddq, seg.tau, source=seg.source, progress=cb, keep=keep, term_signals=signals)
+        comp.add(seg.q, seg.dq, seg.ddq, seg.tau, source=seg.source, progress=cb, keep=keep, term_signals=signals, dt=dt)
         done += seg.q.shape[0]
     return comp
 
@@ -278,6 +330,17 @@ class SegmentData:
     slow: np.ndarray | None = None
     stuck: np.ndarray | None = None
     dry: np.ndarray | None = None
+
+
+def data_timing(data) -> tuple[float | None, float | None]:
+    """(sample step s, low-pass cutoff Hz) of a data set (median segment step; the cutoff it was
+    conditioned with), or Nones for arrays."""
+    if not hasattr(data, "segments"):
+        return None, None
+    steps = [s.dt for s in data.segments if getattr(s, "t", None) is not None and s.n_samples > 1]
+    dt = float(np.median(steps)) if steps else None
+    cutoff = getattr(data, "info", {}).get("cutoff")
+    return dt, (float(cutoff) if cutoff else None)
 
 
 def iter_segments(robot: Robot, data, with_slow: bool = False):

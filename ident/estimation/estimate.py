@@ -3,12 +3,16 @@
 All three work on the compressed problem of :mod:`ident.estimation.compress` (per-joint triangles of
 ``[Y_b | tau]``), so they cost the same whatever the number of samples.
 
-* ``ols``: beta = argmin ||Y_b beta - tau||^2, covariance sigma^2 (Y_b^T Y_b)^-1 with
+* ``ols``: beta = argmin ||Y_b beta - tau||^2; classic covariance sigma^2 (Y_b^T Y_b)^-1 with
   sigma^2 = RSS / (rows - b).
 * ``wls``: each joint's rows are weighted by 1/sigma_j, sigma_j estimated from that joint's OLS
   residuals (Gautier 1997), then once more from the first WLS fit's residuals (the OLS residual
-  of a quiet joint is inflated by the noisier joints); covariance s^2 (W^T W)^-1 of the weighted
-  problem (s^2 ~ 1).
+  of a quiet joint is inflated by the noisier joints); classic covariance s^2 (W^T W)^-1 of the
+  weighted problem (s^2 ~ 1).
+* Standard deviations: by default (``uncertainty="blocks"``) the delete-one-block jackknife of the
+  OLS or WLS estimate over contiguous time blocks (:mod:`ident.estimation.uncertainty`); the
+  classic formula assumes white residuals and is several times too small on filtered closed-loop
+  data. ``uncertainty="classic"`` keeps it (and ``FitResult.cov_classic`` always holds it).
 * ``consistent``: full per-body parameters whose 4x4 pseudo-inertias are positive semidefinite
   (Wensing, Kim and Slotine 2017), friction and armature coefficients >= 0, optional mass, COM
   and total-mass bounds; solved with cvxpy (Clarabel by default) on the WLS-weighted compressed
@@ -60,6 +64,7 @@ from .consistent import consistent_fit, realization
 from .least_squares import solve_reduced, unexcited_directions
 from .result import METHODS, Bounds, ExcitationWarning, FitResult
 from .selection import choose_terms
+from .uncertainty import UNCERTAINTY, block_jackknife, compressor_grams
 
 #: Default weight of the log-det regulariser in the trade-off stage (chi-square units): like a
 #: prior that trusts each link's description values to about 100 % (common practice for CAD
@@ -86,7 +91,7 @@ def _weights(comp: Compressor, sigma: np.ndarray) -> np.ndarray:
 
 def fit(robot: Robot, data, method: str = "consistent", terms="auto", *, bounds: Bounds | None = None, prior=None,
         regularization: float = REGULARIZATION, solver: str = "CLARABEL", progress=None, base: BaseParameters | None = None,
-        slow_velocity: float | None = None) -> FitResult:
+        slow_velocity: float | None = None, uncertainty: str = "blocks") -> FitResult:
     """Identify the base parameters (and a full realization) of `robot` from logged data.
 
     Parameters
@@ -111,18 +116,24 @@ def fit(robot: Robot, data, method: str = "consistent", terms="auto", *, bounds:
         below this (rad/s or m/s) are left out, because sign(q') is unreliable there. Data sets
         carry their own flags (``Segment.slow``, set when the logs are loaded); for arrays, give
         a threshold here (default: keep every sample).
+    uncertainty : how the standard deviations are computed: "blocks" (the default: delete-one
+        jackknife over contiguous time blocks, :mod:`ident.estimation.uncertainty`; honest on
+        filtered, closed-loop data) or "classic" (s^2 (W^T W)^-1, which assumes white residuals).
 
     Returns
     -------
     FitResult
     """
     _check_method(method)
+    _check_uncertainty(uncertainty)
     choice = None
     if isinstance(terms, str) and terms.strip().lower() == "auto":
         choice = choose_terms(robot, data)
         terms = choice.terms
-    comp = compress(robot, data, terms, base=base, progress=progress, slow_velocity=slow_velocity)
-    result = fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver)
+    comp = compress(robot, data, terms, base=base, progress=progress, slow_velocity=slow_velocity,
+                    keep_blocks=(uncertainty == "blocks"))
+    result = fit_compressed(comp, method, bounds=bounds, prior=prior, regularization=regularization, solver=solver,
+                            uncertainty=uncertainty)
     result.term_choice = choice
     return result
 
@@ -132,16 +143,23 @@ def _check_method(method: str) -> None:
         raise IdentError(f"method: '{method}' is not one of {', '.join(METHODS)}")
 
 
+def _check_uncertainty(uncertainty: str) -> None:
+    if uncertainty not in UNCERTAINTY:
+        raise IdentError(f"uncertainty: '{uncertainty}' is not one of {', '.join(UNCERTAINTY)}")
+
+
 def fit_compressed(comp: Compressor, method: str = "consistent", *, bounds: Bounds | None = None, prior=None,
-                   regularization: float = REGULARIZATION, solver: str = "CLARABEL") -> FitResult:
+                   regularization: float = REGULARIZATION, solver: str = "CLARABEL", uncertainty: str = "blocks") -> FitResult:
     """:func:`fit` on data already compressed into a :class:`ident.estimation.compress.Compressor`."""
     # The matrices here are a few dozen wide: BLAS threads only cost synchronisation.
     with single_thread_blas():
-        return _fit_compressed(comp, method, bounds, prior, regularization, solver)
+        return _fit_compressed(comp, method, bounds, prior, regularization, solver, uncertainty)
 
 
-def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization: float, solver: str) -> FitResult:
+def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization: float, solver: str,
+                    uncertainty: str = "blocks") -> FitResult:
     _check_method(method)
+    _check_uncertainty(uncertainty)
     robot, bp = comp.robot, comp.base
     bounds = bounds or Bounds()
     if not bounds.empty() and method != "consistent":
@@ -161,12 +179,15 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
         msgs.append(msg)
         warnings.warn(msg, ExcitationWarning, stacklevel=2)
     result = ls
+    weights = None
     if method in ("wls", "consistent"):
         # One refinement: sigma_j from the OLS residuals is inflated on a quiet joint by the
         # error the noisy joints put into the shared parameters; the WLS residuals fix that.
         result = solve_reduced(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
         sigma = _joint_sigma(comp, result.beta)
-        result = solve_reduced(comp.reduce(_weights(comp, sigma)), names, allow_deficient=(method == "consistent"))
+        weights = _weights(comp, sigma)
+        result = solve_reduced(comp.reduce(weights), names, allow_deficient=(method == "consistent"))
+    unc = _uncertainty(comp, result, weights, uncertainty, msgs)
     P = bp.projection
     solver_info: dict = {}
     if method == "consistent":
@@ -175,18 +196,16 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
         if solver_info.get("status") == "optimal_inaccurate":
             msgs.append(f"consistent fit: solver {solver} reports an inaccurate optimum (check the bounds and the data)")
         beta = P @ full
-        cov = result.cov
     else:
         beta = result.beta
-        cov = result.cov
         full = realization(robot, P, beta, prior_full)
     if result.rank_deficient:
         msgs.append("the data are rank deficient: no covariance; the consistent fit's prior decides the unexcited directions")
     rms = np.sqrt(comp.joint_rss(beta) / np.maximum(comp.rows, 1))
     res = FitResult(
-        robot=robot, terms=comp.terms, base=bp, method=method, beta=beta, cov=cov, full=full, sigma=sigma,
+        robot=robot, terms=comp.terms, base=bp, method=method, beta=beta, cov=unc.pop("cov"), full=full, sigma=sigma,
         residual_rms=rms, condition=ls.condition, unexcited=unexcited, samples=comp.samples,
-        sources=list(comp.sources), solver=solver_info, warnings=msgs,
+        sources=list(comp.sources), solver=solver_info, warnings=msgs, uncertainty=unc, cov_classic=result.cov,
     )
     bad = [b for b, ok in zip(robot.body_names, res.physical) if not ok]
     if bad and method == "consistent":
@@ -199,6 +218,25 @@ def _fit_compressed(comp: Compressor, method: str, bounds, prior, regularization
     if bad:
         res.warnings.append(f"physically impossible link(s) in the realization: {', '.join(bad)} (pseudo-inertia not positive semidefinite; use method 'consistent')")
     return res
+
+
+def _uncertainty(comp: Compressor, result, weights, uncertainty: str, msgs: list[str]) -> dict:
+    """Covariance of the (unconstrained, OLS or WLS) estimate and how it was obtained: {"cov", "method", ...}."""
+    classic = {"cov": result.cov, "method": "classic", "formula": "s^2 (W^T W)^-1 (white residuals assumed)"}
+    if uncertainty == "classic" or result.rank_deficient:
+        return classic
+    if comp.blocks is None:
+        msgs.append("no time blocks were kept with the compressed data: classic standard deviations (likely too small)")
+        return classic
+    cov, why = block_jackknife(compressor_grams(comp, weights), result.beta)
+    if cov is None:
+        msgs.append(f"block jackknife not possible ({why}): classic standard deviations (likely too small)")
+        return classic
+    secs = np.array(comp.blocks.seconds, float)
+    out = {"cov": cov, "method": "blocks", "formula": "delete-one-block jackknife (Kunsch 1989)", "blocks": len(comp.blocks)}
+    if np.all(np.isfinite(secs)):
+        out["block_seconds"] = round(float(np.median(secs)), 6)
+    return out
 
 
 def _prior_vector(robot: Robot, terms, prior) -> np.ndarray:

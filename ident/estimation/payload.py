@@ -8,7 +8,10 @@ problem (:mod:`ident.estimation.compress`), then:
 
 1. least squares, then weighted least squares with per-joint noise from the OLS residuals, giving
    the unconstrained estimate and its covariance (used for the zero-payload check: with no load,
-   the mass should be zero within its uncertainty);
+   the mass should be zero within its uncertainty). By default the covariance is the delete-one
+   block jackknife over contiguous time blocks (:mod:`ident.estimation.uncertainty`, blocks by the
+   rule of :mod:`ident.estimation.blocks`), which holds on filtered closed-loop data where the
+   classic ``s^2 (W^T W)^-1`` is several times too small;
 2. a consistent estimate: the 4x4 pseudo-inertia of the payload is the decision variable of a small
    SDP (positive semidefinite by construction) minimising the same weighted residual. When the
    WLS estimate is already physical the two coincide.
@@ -31,7 +34,9 @@ from ..arm.spatial import PARAM_SUFFIXES, from_pseudo_inertia, from_vector, matr
 from ..blas import single_thread_blas
 from ..errors import DataError, IdentError, NumericalError
 from ..fileio import read_yaml, write_text
-from .compress import fold_rows, iter_segments
+from .blocks import BlockStore, block_length, block_ranges, merge_triangles
+from .compress import data_timing, fold_rows, iter_segments
+from .uncertainty import UNCERTAINTY, block_jackknife, embed_gram
 
 FORMAT = "ident-payload/1"
 #: Scaled singular values below this fraction of the largest make the payload unidentifiable.
@@ -52,6 +57,7 @@ class PayloadResult:
     residual_rms_before, residual_rms_after : (n,) per-joint RMS of ``tau - Y pi_arm`` and of
         the residual after the payload is accounted for (N m or N).
     samples, sources : the data used. solver : details of the SDP step.
+    uncertainty : how `cov` was obtained ({"method": "blocks" | "classic", "blocks": count}).
     """
 
     robot_name: str
@@ -67,6 +73,7 @@ class PayloadResult:
     sources: list[str]
     solver: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    uncertainty: dict = field(default_factory=lambda: {"method": "classic"})
 
     @property
     def mass(self) -> float:
@@ -111,6 +118,7 @@ class PayloadResult:
             "mass": float(self.mass),
             "mass_std": float(self.mass_std),
             "significant": bool(self.significant()),
+            "uncertainty": dict(self.uncertainty),
         }
         if self.params[0] > 0:
             doc["com"] = [float(x) for x in self.com]
@@ -135,6 +143,10 @@ class PayloadResult:
         """Short text report."""
         lines = [f"Payload on {self.body} of {self.robot_name} ({self.samples} samples), expressed in frame {self.frame}:"]
         lines.append(f"  mass            {self.mass:.5g} kg  (unconstrained {self.params_ls[0]:.5g} +- {self.mass_std:.2g} kg)")
+        u = self.uncertainty
+        how = (f"block jackknife over {u.get('blocks')} time blocks" if u.get("method") == "blocks"
+               else "classic s^2 (W^T W)^-1, assumes white residuals")
+        lines.append(f"  std from        {how}")
         if self.params[0] > 0:
             lines.append("  COM             " + ", ".join(f"{x:.5g}" for x in self.com) + " m")
             I = matrix_to_sym(self.inertia_com)
@@ -148,7 +160,7 @@ class PayloadResult:
 
 
 def identify_payload(robot: Robot, params: ParameterSet, data, body: str | None = None, frame: str | None = None,
-                     solver: str = "CLARABEL", progress=None) -> PayloadResult:
+                     solver: str = "CLARABEL", progress=None, uncertainty: str = "blocks") -> PayloadResult:
     """Identify a payload rigidly fixed to `body` (default: the last link) of an identified arm.
 
     Parameters
@@ -161,7 +173,11 @@ def identify_payload(robot: Robot, params: ParameterSet, data, body: str | None 
     frame : name of a link frame on that body to express the result in (default: the body frame).
     solver : cvxpy solver for the consistent step.
     progress : optional callable ``progress(samples_done, samples_total)``.
+    uncertainty : "blocks" (default: block jackknife covariance, also behind `significant`) or
+        "classic" (s^2 (W^T W)^-1).
     """
+    if uncertainty not in UNCERTAINTY:
+        raise IdentError(f"uncertainty: '{uncertainty}' is not one of {', '.join(UNCERTAINTY)}")
     params = params.check_robot(robot, where="arm parameters")
     k = robot.n - 1 if body is None else _body_index(robot, body)
     body_name = robot.body_names[k]
@@ -178,6 +194,9 @@ def identify_payload(robot: Robot, params: ParameterSet, data, body: str | None 
     rss0 = np.zeros(n)
     segs = list(iter_segments(robot, data))
     total = sum(s[1].shape[0] for s in segs)
+    dt, cutoff = data_timing(data)
+    L = block_length([s[1].shape[0] for s in segs], dt, cutoff)
+    store = BlockStore()
     done, samples, sources = 0, 0, []
     cols = slice(10 * k, 10 * k + 10)
     with single_thread_blas():
@@ -186,14 +205,18 @@ def identify_payload(robot: Robot, params: ParameterSet, data, body: str | None 
                 q, dq, ddq, tau = robot.check_states(q, dq, ddq, tau, names=("q", "dq", "ddq", "tau"))
             except IdentError as exc:
                 raise DataError(f"{source}: {exc}") from None
-            for sl, Y in iter_regressor(robot, q, dq, ddq, terms):
-                r = tau[sl] - Y @ pi_arm
-                rss0 += np.einsum("ij,ij->j", r, r)
-                for j in range(n):
-                    if robot.ancestors[k, j]:
-                        tri[j] = fold_rows(tri[j], Y[:, j, cols], r[:, j])
-                if progress is not None:
-                    progress(done + sl.stop, total)
+            for a, b in block_ranges(q.shape[0], L):
+                blk = [np.zeros((11, 11)) for _ in range(n)]
+                for sl, Y in iter_regressor(robot, q[a:b], dq[a:b], ddq[a:b], terms):
+                    r = tau[a + sl.start : a + sl.stop] - Y @ pi_arm
+                    rss0 += np.einsum("ij,ij->j", r, r)
+                    for j in range(n):
+                        if robot.ancestors[k, j]:
+                            blk[j] = fold_rows(blk[j], Y[:, j, cols], r[:, j])
+                    if progress is not None:
+                        progress(done + a + sl.stop, total)
+                tri = [merge_triangles(T, B) for T, B in zip(tri, blk)]
+                store.append(blk, np.full(n, b - a))
             done += q.shape[0]
             samples += q.shape[0]
             sources.append(source)
@@ -208,6 +231,15 @@ def identify_payload(robot: Robot, params: ParameterSet, data, body: str | None 
     w = 1.0 / np.maximum(sigma, 1e-12 * np.maximum(rms_tau, 1e-300))
     pi_w, cov, (Rw, zw, _) = _ls(tri, carriers, w, samples * len(carriers))
     msgs = []
+    unc = {"method": "classic"}
+    if uncertainty == "blocks":
+        ten = [np.arange(10) if j in carriers else None for j in range(n)]
+        grams = np.stack([embed_gram(blk, ten, 10, w) for blk in store.blocks])
+        cov_b, why = block_jackknife(grams, pi_w)
+        if cov_b is None:
+            msgs.append(f"block jackknife not possible ({why}): classic standard deviations (likely too small)")
+        else:
+            cov, unc = cov_b, {"method": "blocks", "blocks": len(store)}
     ev = np.linalg.eigvalsh(pseudo_inertia(pi_w))
     t0 = time.perf_counter()
     if ev[0] >= 0:
@@ -227,7 +259,7 @@ def identify_payload(robot: Robot, params: ParameterSet, data, body: str | None 
     return PayloadResult(
         robot_name=robot.name, joint_names=list(robot.joint_names), body=body_name, frame=frame_name,
         params=params_f, params_ls=pi_w, cov=cov, residual_rms_before=rms_tau, residual_rms_after=rms_after,
-        samples=samples, sources=sources, solver=info, warnings=msgs,
+        samples=samples, sources=sources, solver=info, warnings=msgs, uncertainty=unc,
     )
 
 

@@ -69,7 +69,8 @@ class FitResult:
     robot, terms, base : model, joint-term codes and base-parameter set used.
     method : "ols", "wls" or "consistent".
     beta : (b,) base parameter estimates (for ``consistent``: the base parameters of `full`).
-    cov : (b, b) covariance of the base parameters (for ``consistent``: the WLS covariance).
+    cov : (b, b) covariance of the base parameters (for ``consistent``: that of the WLS estimate),
+        by the method in `uncertainty`.
     full : (p,) a full parameter vector reproducing `beta` (regressor column order). For OLS and
         WLS: the realization closest to the prior (see :func:`realization`; it may be physically
         impossible: see `physical`); for ``consistent``: the constrained realization.
@@ -83,6 +84,10 @@ class FitResult:
     warnings : every warning raised on the way.
     term_choice : how the joint terms were chosen from the data when ``terms="auto"``
         (:class:`ident.estimation.selection.TermChoice`), else None.
+    uncertainty : how `cov` was obtained: {"method": "blocks" | "classic", "formula", and for
+        blocks "blocks" (count) and "block_seconds" (median duration)}.
+    cov_classic : (b, b) the classic covariance s^2 (W^T W)^-1 of the same estimate, kept for
+        comparison (the summary prints the median ratio of the two standard deviations).
     """
 
     robot: Robot
@@ -101,6 +106,14 @@ class FitResult:
     solver: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     term_choice: object = None
+    uncertainty: dict = field(default_factory=lambda: {"method": "classic"})
+    cov_classic: np.ndarray | None = None
+
+    @property
+    def std_classic(self) -> np.ndarray:
+        """(b,) standard deviations by the classic formula s^2 (W^T W)^-1 (for comparison)."""
+        cov = self.cov if self.cov_classic is None else self.cov_classic
+        return np.sqrt(np.maximum(np.diag(cov), 0.0))
 
     @property
     def names(self) -> list[str]:
@@ -146,6 +159,26 @@ class FitResult:
         ev = np.linalg.eigvalsh(pseudo_inertia(self.inertial))
         return ev[:, 0] >= -PHYSICAL_TOL * np.maximum(np.abs(ev[:, -1]), 1e-300)
 
+    @property
+    def link_masses(self) -> list[tuple[float, float | None]]:
+        """Per body (mass kg, std kg or None): the std where the data determine the mass (it is a
+        combination of the base parameters, m_i = a^T beta), None where only this realization
+        fixes it (the mass is not a function of the base parameters)."""
+        n = self.robot.n
+        P = self.base.projection
+        E = np.zeros((P.shape[1], n))
+        E[10 * np.arange(n), np.arange(n)] = 1.0
+        a, *_ = np.linalg.lstsq(P.T, E, rcond=None)
+        miss = np.linalg.norm(P.T @ a - E, axis=0)
+        out = []
+        for i in range(n):
+            if miss[i] < 1e-8:
+                var = float(a[:, i] @ self.cov @ a[:, i])
+                out.append((float(a[:, i] @ self.beta), float(np.sqrt(max(var, 0.0))) if np.isfinite(var) else float("nan")))
+            else:
+                out.append((float(self.inertial[i, 0]), None))
+        return out
+
     def predict(self, q, dq, ddq) -> np.ndarray:
         """Model torque (N, n) of the full realization at (N, n) states."""
         from ..arm.regressor import predict
@@ -163,6 +196,8 @@ class FitResult:
             "unexcited_directions": list(self.unexcited),
             "physical_links": {b: bool(ok) for b, ok in zip(self.robot.body_names, self.physical)},
             "warnings": list(self.warnings),
+            "uncertainty": {k: v for k, v in self.uncertainty.items() if k != "cov"},
+            "link_mass_std": {b: (None if s is None else float(s)) for b, (_, s) in zip(self.robot.body_names, self.link_masses)},
         }
         if self.solver:
             d["solver"] = dict(self.solver)
@@ -171,6 +206,8 @@ class FitResult:
     def to_parameter_set(self, data: dict | None = None) -> ParameterSet:
         """The :class:`ParameterSet` of this fit (full realization, base table, method, diagnostics)."""
         method = {"name": self.method, "terms": list(self.terms)}
+        if self.term_choice is not None:
+            method["term_choice"] = self.term_choice.describe()
         if self.method == "ols":
             method["realization"] = "closest to the prior (log-det metric) among those with the estimated base parameters; may be non-physical"
         elif self.method == "wls":
@@ -179,11 +216,27 @@ class FitResult:
         else:
             method["regularizer"] = "log-det divergence to the prior pseudo-inertias"
             method.update({k: v for k, v in self.solver.items() if k in ("stage", "solver", "regularization")})
+        method["uncertainty"] = self.uncertainty_text()
         info = {"samples": int(self.samples), "sources": list(self.sources)}
         if data:
             info.update(data)
         table = BaseTable(self.names, self.beta, self.std, self.base.relations())
         return parameter_set_from_vector(self.robot, self.full, self.terms, base=table, method=method, data=info, diagnostics=self.diagnostics())
+
+    def uncertainty_text(self) -> str:
+        """One line: how the standard deviations were computed."""
+        u = self.uncertainty
+        if u.get("method") == "blocks":
+            dur = f", median {u['block_seconds']:.3g} s each" if "block_seconds" in u else ""
+            ratio = ""
+            if self.cov_classic is not None:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    r = self.std / self.std_classic
+                r = r[np.isfinite(r)]
+                if r.size:
+                    ratio = f"; median {np.median(r):.2g}x the classic formula's"
+            return f"block jackknife over {u.get('blocks')} contiguous time blocks{dur} (counts correlated residuals and model error{ratio})"
+        return "classic s^2 (W^T W)^-1 (assumes white, equal-variance residuals; too small on filtered closed-loop data)"
 
     def summary(self) -> str:
         """A text report: header with the diagnostics, then one row per base parameter."""
@@ -194,6 +247,7 @@ class FitResult:
             f"Fit of {r.name}: method {self.method}, {self.samples} samples from {len(self.sources)} log(s), "
             f"{self.base.n_base} base parameters (terms: {', '.join(self.terms) or 'none'})",
             f"Condition number (column-scaled): {self.condition:.4g}",
+            f"Standard deviations: {self.uncertainty_text()}",
         ]
         if self.term_choice is not None:
             lines.append(self.term_choice.describe())
@@ -216,10 +270,12 @@ class FitResult:
         lines.append(format_table(["parameter", "estimate", "std", "rel.std %", "flag"], rows, "lrrrl"))
         lines.append("")
         lines.append(format_table(
-            ["link", "mass kg", "COM x,y,z m", "physical"],
-            [_link_row(b, pi, ok) for b, pi, ok in zip(r.body_names, self.inertial, self.physical)],
-            "lrll",
+            ["link", "mass kg", "mass std", "COM x,y,z m", "physical"],
+            [_link_row(b, pi, ok, ms) for b, pi, ok, ms in zip(r.body_names, self.inertial, self.physical, self.link_masses)],
+            "lrrll",
         ))
+        lines.append("  (mass std: where the data determine the link mass; 'one realization': the data fix only "
+                     "combinations of it with other parameters, the value is the realization's)")
         if self.unexcited:
             lines.append("")
             lines.append("Directions the data barely excite (set by the prior in a consistent fit):")
@@ -230,10 +286,11 @@ class FitResult:
         return "\n".join(lines)
 
 
-def _link_row(body, pi, ok):
+def _link_row(body, pi, ok, mass_std):
     if pi[0] > 0:
         _, c, _ = from_vector(pi)
         com = ", ".join(f"{x:.4g}" for x in c)
     else:
         com = "(undefined: mass <= 0)"
-    return [body, f"{pi[0]:.4g}", com, "yes" if ok else "NO"]
+    std = "one realization" if mass_std[1] is None else f"{mass_std[1]:.3g}"
+    return [body, f"{pi[0]:.4g}", std, com, "yes" if ok else "NO"]

@@ -72,7 +72,7 @@ def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, 
     with single_thread_blas():
         for terms in cands:
             bp = base_parameters(robot, terms)
-            comps = [Compressor(robot, terms, bp) for _ in range(folds)]
+            comps = [Compressor(robot, terms, bp, keep_blocks=False) for _ in range(folds)]
             for seg in segs:
                 m = seg.q.shape[0]
                 idx = np.arange(0, m, stride)
@@ -88,7 +88,7 @@ def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, 
                 raise DataError("term choice: too few samples for the held-out folds")
             rss = np.zeros(robot.n)
             for f in range(folds):
-                train = Compressor(robot, terms, bp)
+                train = Compressor(robot, terms, bp, keep_blocks=False)
                 for g in range(folds):
                     if g != f:
                         train.merge(comps[g])

@@ -82,3 +82,35 @@ def friction_curves(robot: Robot, ps: ParameterSet, data, others: dict | None = 
             laws[label] = friction_law(jp, grid)[:, 0]
         out.append(FrictionCurve(name, centers[keep], mean[keep], spread[keep], counts[keep], grid, laws))
     return out
+
+
+def friction_figure(curves: list[FrictionCurve], unit: str = "N m"):
+    """A matplotlib figure: per joint, the binned measured friction (mean and +-1 std band) against
+    velocity on a symmetric log axis, and every fitted law."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    k = max(len(curves), 1)
+    cols = min(3, k)
+    rows = (k + cols - 1) // cols
+    fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 3.0 * rows), squeeze=False)
+    for ax, c in zip(axes.flat, curves):
+        ax.fill_between(c.centers, c.mean - c.spread, c.mean + c.spread, color="0.85", label="measured +-1 std")
+        ax.plot(c.centers, c.mean, "k.", ms=4, label="measured (bin mean)")
+        for label, law in c.laws.items():
+            ax.plot(c.grid, law, lw=1.4, label=label)
+        lin = float(np.min(np.abs(c.grid))) * 10
+        ax.set_xscale("symlog", linthresh=max(lin, 1e-4))
+        ax.set_title(c.joint, fontsize=10)
+        ax.set_xlabel("velocity (rad/s or m/s)", fontsize=9)
+        ax.set_ylabel(f"friction ({unit})", fontsize=9)
+        ax.tick_params(labelsize=8)
+        ax.grid(alpha=0.3)
+    for ax in list(axes.flat)[len(curves):]:
+        ax.axis("off")
+    if curves:
+        axes.flat[0].legend(fontsize=7, loc="upper left")
+    fig.tight_layout()
+    return fig

@@ -16,12 +16,13 @@ from datetime import datetime, timezone
 import numpy as np
 
 from ..arm.base import base_parameters
-from ..arm.model import PRISMATIC, Robot
+from ..arm.model import DRY_FRICTION_TERMS, PRISMATIC, Robot
 from ..arm.parameters import ParameterSet
 from ..errors import IdentError
 from ..fileio import write_text
 from ..progress import Progress
 from .check import Validation, link_checks
+from .friction import friction_curves, friction_figure
 
 #: Relative standard deviation (percent) above which a base parameter is flagged (common practice: 10 %).
 POOR_REL_STD = 10.0
@@ -301,8 +302,14 @@ def _render(robot, ps, validation, validation_data, fit_data, reference, title, 
                 row += [f"{ref.joint_params[c][j]:.4g}" if c in ref.joint_params else "-" for c in terms]
             rows.append(row)
         units = {"fv": "fv (N m s/rad)", "fc": "fc (N m)", "fo": "fo (N m)", "ia": "ia (kg m\u00b2)"}
-        heads = ["joint"] + [units[c] for c in terms] + ([f"reference {c}" for c in terms] if reference is not None else [])
+        heads = ["joint"] + [units.get(c, f"{c} (N m)") for c in terms] + ([f"reference {c}" for c in terms] if reference is not None else [])
         parts.append(_table(heads, rows, [False] + [True] * (len(heads) - 1)))
+    if fit_data is not None and any(c in DRY_FRICTION_TERMS or c == "fv" for c in ps.terms):
+        parts.append("<p>Friction against velocity: the torque the identified rigid bodies and armature leave "
+                     "unexplained in the fit data, binned (mean and spread), and the fitted friction law"
+                     + (" and the reference's" if reference is not None else "") + ":</p>")
+        others = {"reference": reference} if reference is not None else None
+        parts.append(_png(friction_figure(friction_curves(robot, ps, fit_data, others))))
     bar.update(4, "values")
 
     # -- held-out check -----------------------------------------------------------------------------
