@@ -34,7 +34,7 @@ MAGNITUDE: dict[str, tuple[float, str]] = {
     "current": (1e6, "A"),
     "gravity": (1e4, "m/s^2"),
     "friction": (1e9, "N m s/rad or N m"),
-    "time": (1e9, "s"),
+    "time": (1e12, "s"),
     "rate": (1e6, "Hz"),
     "scale": (1e12, ""),
     "parameter": (1e12, "SI"),
@@ -62,8 +62,7 @@ def number(value, where: str, quantity: str | None = None, error: type[IdentErro
     `allow_inf` accepts +-inf (meaning "no limit") but never NaN.
     """
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        shown = _short(value)
-        raise error(f"{where}: expected a number, got {shown}")
+        raise error(f"{where}: expected a number, got {shown(value)}")
     try:
         x = float(value)
     except OverflowError:
@@ -83,7 +82,7 @@ def text_number(text, where: str, quantity: str | None = None, error: type[Ident
     try:
         value = float(str(text).strip())
     except ValueError:
-        raise error(f"{where}: '{_short(text, quotes=False)}' is not a number") from None
+        raise error(f"{where}: '{shown(text, quotes=False)}' is not a number") from None
     return number(value, where, quantity, error, allow_inf)
 
 
@@ -91,7 +90,7 @@ def count(value, where: str, minimum: int = 0, maximum: int | None = None, error
           limit_name: str = "") -> int:
     """`value` as an integer in [minimum, maximum]; `limit_name` says where `maximum` comes from."""
     if isinstance(value, bool) or not isinstance(value, int):
-        raise error(f"{where}: expected an integer >= {minimum}, got {_short(value)}")
+        raise error(f"{where}: expected an integer >= {minimum}, got {shown(value)}")
     if value < minimum:
         raise error(f"{where}: expected an integer >= {minimum}, got {value}")
     if maximum is not None and value > maximum:
@@ -123,7 +122,7 @@ def seed(value, where: str, error: type[IdentError] = IdentError) -> int:
     return count(value, where, 0, MAX_SEED, error, "seeds are 63-bit")
 
 
-def _short(value, quotes: bool = True) -> str:
+def shown(value, quotes: bool = True) -> str:
     """A short rendering of a value for a message (never the repr of a huge object)."""
     if isinstance(value, (dict, list, tuple)):
         return f"a {type(value).__name__} of {len(value)} entries"
