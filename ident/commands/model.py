@@ -78,6 +78,7 @@ def describe(robot: Robot, terms) -> dict:
 
 
 def run(args) -> int:
+    seed(args.seed, "--seed")
     robot = robot_from_args(args)
     terms = terms_from_args(args)
     info = describe(robot, terms)
