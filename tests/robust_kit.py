@@ -44,10 +44,11 @@ def snapshot(*folders: Path) -> dict:
     out = {}
     for f in folders:
         for root, dirs, files in os.walk(f):
-            for name in dirs + files:
-                p = Path(root) / name
-                st = p.stat()
-                out[str(p)] = (st.st_size, st.st_mtime_ns)
+            for name in dirs:  # a folder's own time changes when a temporary file comes and goes
+                out[str(Path(root) / name)] = "folder"
+            for name in files:
+                st = (Path(root) / name).stat()
+                out[str(Path(root) / name)] = (st.st_size, st.st_mtime_ns)
     return out
 
 
