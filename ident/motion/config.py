@@ -211,8 +211,13 @@ def _parse_keepout(robot: Robot, spec, where: str) -> tuple[list[KeepoutPoint], 
         key = f"{where}.points[{k}]"
         if not isinstance(item, dict) or "link" not in item:
             raise IdentError(f"{key}: expected a mapping with link and point (m, in the link frame)")
-        link = str(item["link"])
-        robot.frame(link)  # names an unknown link clearly
+        if not isinstance(item["link"], str):
+            raise IdentError(f"{key}.link: expected a link name, got {shown(item['link'])}")
+        link = item["link"]
+        try:
+            robot.frame(link)
+        except IdentError as exc:
+            raise IdentError(f"{key}.link: {exc}") from None
         pt = float_list(item.get("point", [0.0, 0.0, 0.0]), f"{key}.point", 3)
         name = str(item.get("name", f"{link}@{k}"))
         if any(p.name == name for p in points):
