@@ -9,6 +9,11 @@ __version__ = "0.1.0"
 
 import importlib as _importlib
 
+from . import interrupts as _interrupts
+
+if _interrupts.is_cli_process():  # before the heavy imports below: Ctrl-C at start-up is one line too
+    _interrupts.install_startup()
+
 from .arm.base import BaseParameters, base_parameters
 from .arm.dynamics import (
     body_poses,

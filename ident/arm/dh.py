@@ -50,6 +50,7 @@ import numpy as np
 
 from ..errors import ModelError
 from ..fileio import read_yaml
+from ..intake import shown, number
 from .model import Robot
 from .spatial import rpy_to_matrix, to_vector, transform_params
 from .tree import JointSpec, LinkSpec, build_robot
@@ -122,22 +123,17 @@ class _Reader:
                 self.fail(place, f"missing key '{key}'")
         return obj
 
-    def number(self, obj, place: str) -> float:
-        if isinstance(obj, bool) or not isinstance(obj, (int, float)):
-            self.fail(place, f"expected a number, got {obj!r}")
-        val = float(obj)
-        if not np.isfinite(val):
-            self.fail(place, f"expected a finite number, got {obj!r}")
-        return val
+    def number(self, obj, place: str, quantity: str = "parameter") -> float:
+        return number(obj, f"{self.where}: {place}", quantity, ModelError)
 
-    def vector(self, obj, place: str, size: int) -> np.ndarray:
+    def vector(self, obj, place: str, size: int, quantity: str = "parameter") -> np.ndarray:
         if not isinstance(obj, (list, tuple)) or len(obj) != size:
-            self.fail(place, f"expected a list of {size} numbers, got {obj!r}")
-        return np.array([self.number(v, f"{place}[{i}]") for i, v in enumerate(obj)])
+            self.fail(place, f"expected a list of {size} numbers, got {shown(obj)}")
+        return np.array([self.number(v, f"{place}[{i}]", quantity) for i, v in enumerate(obj)])
 
     def name(self, obj, place: str) -> str:
         if not isinstance(obj, str) or not obj.strip() or obj != obj.strip():
-            self.fail(place, f"expected a non-empty name without surrounding spaces, got {obj!r}")
+            self.fail(place, f"expected a non-empty name without surrounding spaces, got {shown(obj)}")
         return obj
 
 
@@ -153,20 +149,20 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
     rd = _Reader(where)
     top = rd.mapping(data, "top level", _TOP_KEYS, ("format", "name", "convention", "units", "joints"))
     if top["format"] != FORMAT:
-        rd.fail("format", f"expected '{FORMAT}', got {top['format']!r}")
+        rd.fail("format", f"expected '{FORMAT}', got {shown(top['format'])}")
     name = rd.name(top["name"], "name")
     convention = top["convention"]
     if convention not in ("standard", "modified"):
-        rd.fail("convention", f"expected 'standard' or 'modified', got {convention!r}")
+        rd.fail("convention", f"expected 'standard' or 'modified', got {shown(convention)}")
     units = rd.mapping(top["units"], "units", {"angle", "length"}, ("angle", "length"))
     if units["angle"] not in ANGLE_UNITS:
-        rd.fail("units.angle", f"expected one of {', '.join(ANGLE_UNITS)}, got {units['angle']!r}")
+        rd.fail("units.angle", f"expected one of {', '.join(ANGLE_UNITS)}, got {shown(units['angle'])}")
     if units["length"] not in LENGTH_UNITS:
-        rd.fail("units.length", f"expected one of {', '.join(LENGTH_UNITS)}, got {units['length']!r}")
+        rd.fail("units.length", f"expected one of {', '.join(LENGTH_UNITS)}, got {shown(units['length'])}")
     ang, lng = ANGLE_UNITS[units["angle"]], LENGTH_UNITS[units["length"]]
     gravity = None
     if "gravity" in top:
-        gravity = rd.vector(top["gravity"], "gravity", 3)
+        gravity = rd.vector(top["gravity"], "gravity", 3, "gravity")
     base = rd.name(top.get("base", "base"), "base")
     rows = top["joints"]
     if not isinstance(rows, list) or not rows:
@@ -197,7 +193,7 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
         jname = rd.name(row["name"], place + ".name")
         jtype = row["type"]
         if jtype not in ("revolute", "prismatic"):
-            rd.fail(place + ".type", f"expected 'revolute' or 'prismatic', got {jtype!r}")
+            rd.fail(place + ".type", f"expected 'revolute' or 'prismatic', got {shown(jtype)}")
         var_key = "theta" if jtype == "revolute" else "d"
         const_key = "d" if jtype == "revolute" else "theta"
         if row[var_key] != "q":
@@ -221,12 +217,12 @@ def parse_dh(data, where: str = "DH description", joints=None, locked=None) -> R
         largest_length = max(largest_length, abs(a), abs(d), abs(offset) if jtype == "prismatic" else 0.0)
 
         lim = rd.mapping(row.get("limits", {}), place + ".limits", _LIMIT_KEYS)
-        lower = rd.number(lim["lower"], place + ".limits.lower") * unit if "lower" in lim else -np.inf
-        upper = rd.number(lim["upper"], place + ".limits.upper") * unit if "upper" in lim else np.inf
+        lower = rd.number(lim["lower"], place + ".limits.lower", "position") * unit if "lower" in lim else -np.inf
+        upper = rd.number(lim["upper"], place + ".limits.upper", "position") * unit if "upper" in lim else np.inf
         if lower > upper:
             rd.fail(place + ".limits", f"lower limit {lim['lower']} is above upper limit {lim['upper']}")
-        velocity = rd.number(lim["velocity"], place + ".limits.velocity") * unit if "velocity" in lim else np.inf
-        effort = rd.number(lim["effort"], place + ".limits.effort") if "effort" in lim else np.inf
+        velocity = rd.number(lim["velocity"], place + ".limits.velocity", "velocity") * unit if "velocity" in lim else np.inf
+        effort = rd.number(lim["effort"], place + ".limits.effort", "torque") if "effort" in lim else np.inf
         for key, val in (("velocity", velocity), ("effort", effort)):
             if not val > 0:
                 rd.fail(f"{place}.limits.{key}", f"must be positive, got {lim[key]}")
@@ -284,11 +280,11 @@ def _link_prior(rd: _Reader, link: dict, place: str, lng: float) -> np.ndarray:
     for key in ("mass", "com", "inertia"):
         if key not in link:
             rd.fail(place, f"missing key '{key}' (give mass, com and inertia together)")
-    mass = rd.number(link["mass"], place + ".mass")
+    mass = rd.number(link["mass"], place + ".mass", "mass")
     if mass < 0:
         rd.fail(place + ".mass", f"negative mass {mass:g} kg")
     com = rd.vector(link["com"], place + ".com", 3) * lng
-    xx, xy, xz, yy, yz, zz = rd.vector(link["inertia"], place + ".inertia", 6) * lng**2
+    xx, xy, xz, yy, yz, zz = rd.vector(link["inertia"], place + ".inertia", 6, "inertia") * lng**2
     I_c = np.array([[xx, xy, xz], [xy, yy, yz], [xz, yz, zz]])
     ev = np.linalg.eigvalsh(I_c)
     scale = max(abs(ev).max(), 1e-300)

@@ -14,42 +14,35 @@ from defusedxml import DefusedXmlException
 from defusedxml import ElementTree as SafeET
 
 from ..errors import ModelError
+from ..intake import text_number
 from .model import Robot
 from .spatial import rpy_to_matrix, sym_to_matrix, to_vector
 from .tree import JointSpec, LinkSpec, build_robot
 
 
-def _floats(text, count, what) -> np.ndarray:
-    try:
-        vals = np.array([float(t) for t in (text or "").split()])
-    except ValueError:
-        raise ModelError(f"{what}: '{text}' is not {count} numbers") from None
-    if vals.size != count or not np.all(np.isfinite(vals)):
-        raise ModelError(f"{what}: '{text}' is not {count} finite numbers")
-    return vals
+def _floats(text, count, what, quantity=None) -> np.ndarray:
+    items = (text or "").split()
+    if len(items) != count:
+        raise ModelError(f"{what}: '{text}' is not {count} numbers")
+    return np.array([text_number(t, what, quantity, ModelError) for t in items])
 
 
-def _attr_float(elem, key, what, default=None) -> float:
+def _attr_float(elem, key, what, default=None, quantity=None) -> float:
     val = elem.get(key)
     if val is None:
         if default is None:
             raise ModelError(f"{what}: attribute '{key}' is missing")
         return default
-    try:
-        out = float(val)
-    except ValueError:
-        raise ModelError(f"{what}: attribute {key}='{val}' is not a number") from None
-    if np.isnan(out):
-        raise ModelError(f"{what}: attribute {key} is NaN")
-    return out
+    # +-inf stays allowed for the limits that mean "none given" (velocity, effort)
+    return text_number(val, f"{what}: attribute {key}", quantity, ModelError, allow_inf=quantity in ("velocity", "torque"))
 
 
 def _origin(elem, what):
     o = elem.find("origin")
     if o is None:
         return np.eye(3), np.zeros(3)
-    xyz = _floats(o.get("xyz", "0 0 0"), 3, f"{what} <origin xyz>")
-    rpy = _floats(o.get("rpy", "0 0 0"), 3, f"{what} <origin rpy>")
+    xyz = _floats(o.get("xyz", "0 0 0"), 3, f"{what} <origin xyz>", "length")
+    rpy = _floats(o.get("rpy", "0 0 0"), 3, f"{what} <origin rpy>", "angle")
     return rpy_to_matrix(rpy), xyz
 
 
@@ -61,12 +54,12 @@ def _link_params(link, where) -> np.ndarray:
         return np.zeros(10)
     R, com = _origin(inertial, what + " inertial")
     mass_el = inertial.find("mass")
-    mass = 0.0 if mass_el is None else _attr_float(mass_el, "value", what + " <mass>")
+    mass = 0.0 if mass_el is None else _attr_float(mass_el, "value", what + " <mass>", quantity="mass")
     if mass < 0:
         raise ModelError(f"{what}: negative mass {mass:g} kg")
     in_el = inertial.find("inertia")
     keys = ("ixx", "ixy", "ixz", "iyy", "iyz", "izz")
-    vals = np.zeros(6) if in_el is None else np.array([_attr_float(in_el, k, what + " <inertia>", 0.0) for k in keys])
+    vals = np.zeros(6) if in_el is None else np.array([_attr_float(in_el, k, what + " <inertia>", 0.0, "inertia") for k in keys])
     I_urdf = sym_to_matrix(vals)
     I_c = R @ I_urdf @ R.T
     if mass > 0 or np.any(vals != 0):
@@ -111,7 +104,7 @@ def parse_urdf(text: str, where: str = "URDF", joints=None, locked=None) -> Robo
             raise ModelError(f"{what}: has no <child link=...>")
         R, p = _origin(j, what)
         ax_el = j.find("axis")
-        axis = np.array([1.0, 0.0, 0.0]) if ax_el is None else _floats(ax_el.get("xyz", "1 0 0"), 3, f"{what} <axis>")
+        axis = np.array([1.0, 0.0, 0.0]) if ax_el is None else _floats(ax_el.get("xyz", "1 0 0"), 3, f"{what} <axis>", "scale")
         norm = np.linalg.norm(axis)
         if jtype in ("revolute", "continuous", "prismatic") and norm < 1e-12:
             raise ModelError(f"{what}: axis is zero")
@@ -121,13 +114,13 @@ def parse_urdf(text: str, where: str = "URDF", joints=None, locked=None) -> Robo
         if jtype in ("revolute", "prismatic"):
             if lim is None:
                 raise ModelError(f"{what}: {jtype} joint has no <limit>")
-            spec.lower = _attr_float(lim, "lower", what + " <limit>", 0.0)
-            spec.upper = _attr_float(lim, "upper", what + " <limit>", 0.0)
+            spec.lower = _attr_float(lim, "lower", what + " <limit>", 0.0, "position")
+            spec.upper = _attr_float(lim, "upper", what + " <limit>", 0.0, "position")
             if spec.lower > spec.upper:
                 raise ModelError(f"{what}: lower limit {spec.lower:g} is above upper limit {spec.upper:g}")
         if lim is not None and jtype in ("revolute", "prismatic", "continuous"):
-            spec.velocity = _attr_float(lim, "velocity", what + " <limit>", np.inf)
-            spec.effort = _attr_float(lim, "effort", what + " <limit>", np.inf)
+            spec.velocity = _attr_float(lim, "velocity", what + " <limit>", np.inf, "velocity")
+            spec.effort = _attr_float(lim, "effort", what + " <limit>", np.inf, "torque")
             for key in ("velocity", "effort"):
                 if getattr(spec, key) <= 0:
                     setattr(spec, key, np.inf)  # URDF files often carry 0 for "not given"

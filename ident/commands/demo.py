@@ -11,6 +11,7 @@ from pathlib import Path
 from ..arm.loader import load_robot
 from ..data.load import load_dataset
 from ..errors import IdentError
+from ..fileio import atomic_folder
 from ..estimation.estimate import fit
 from ..handover.check import validate_dataset
 from ..handover.export import export_urdf
@@ -70,7 +71,6 @@ def run(args) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise IdentError(f"--out: '{out}' exists and is not a folder")
-    out.mkdir(parents=True, exist_ok=True)
     talk = not (args.quiet or args.json)
 
     def say(msg):
@@ -90,17 +90,19 @@ def run(args) -> int:
         result = fit(robot, fit_data, method="consistent", progress=lambda done, total: bar.update(done, "compressing"))
     ps = result.to_parameter_set(data={"logs": [FIT_LOG], "conditioning": dict(LOG_OPTIONS)})
     params_path = out / "sprout6_identified.yaml"
-    save_parameters(params_path, ps)
-    say(f"2/4 check on the held-out log {HELDOUT_LOG}")
-    val = validate_dataset(robot, ps, held)
-    say(val.table())
     urdf_path = out / "sprout6_identified.urdf"
-    say("3/4 export the identified URDF")
-    export_urdf(src / ROBOT_FILE, robot, ps, urdf_path)
     report_path = out / "sprout6_report.html"
-    say("4/4 report")
-    write_report(report_path, robot, ps, validation=val, validation_data=held, fit_data=fit_data, reference=truth,
-                 title="ident demo: sprout6 seedling-tray arm", progress=talk)
+    # the three files are written into a temporary folder and moved into DIR whole (atomic_folder)
+    with atomic_folder(out) as tmp:
+        save_parameters(tmp / params_path.name, ps)
+        say(f"2/4 check on the held-out log {HELDOUT_LOG}")
+        val = validate_dataset(robot, ps, held)
+        say(val.table())
+        say("3/4 export the identified URDF")
+        export_urdf(src / ROBOT_FILE, robot, ps, tmp / urdf_path.name)
+        say("4/4 report")
+        write_report(tmp / report_path.name, robot, ps, validation=val, validation_data=held, fit_data=fit_data, reference=truth,
+                     title="ident demo: sprout6 seedling-tray arm", progress=talk)
     noise = truth.data.get("torque_noise_std") if isinstance(truth.data, dict) else None
     summary = {
         "report": str(report_path),

@@ -7,7 +7,8 @@ import sys
 
 from ..data.load import load_dataset
 from ..errors import IdentError
-from ..motion.config import load_excitation_config
+from ..intake import count, number, seed
+from ..motion.config import MAX_STARTS, load_excitation_config
 from ..motion.design import design_excitation, verify_trajectory
 from ..motion.fourier import load_trajectory
 from ..motion.outputs import summary_text, write_excitation
@@ -63,15 +64,13 @@ def run(args: argparse.Namespace) -> int:
     cfg = load_excitation_config(args.config, robot)
     changes = {}
     if args.seed is not None:
-        changes["seed"] = args.seed
+        changes["seed"] = seed(args.seed, "--seed")
     if args.starts is not None:
-        if args.starts < 1:
-            raise IdentError(f"--starts: expected a positive integer, got {args.starts}")
-        changes["starts"] = args.starts
+        changes["starts"] = count(args.starts, "--starts", 1, MAX_STARTS, limit_name="hours of optimizing at the least")
     if args.budget is not None:
         if not args.budget > 0:
             raise IdentError(f"--budget: expected a positive number of seconds, got {args.budget}")
-        changes["budget"] = args.budget
+        changes["budget"] = number(args.budget, "--budget", "time")
     if args.criterion is not None:
         changes["criterion"] = args.criterion
     if changes:

@@ -8,6 +8,7 @@ import numpy as np
 
 from ..arm.base import base_parameters
 from ..arm.model import JOINT_TERMS, PRISMATIC, Robot
+from ..intake import seed
 from .common import add_robot_arguments, add_terms_argument, format_table, print_json, robot_from_args, terms_from_args
 
 EXAMPLE = """\
@@ -77,10 +78,11 @@ def describe(robot: Robot, terms) -> dict:
 
 
 def run(args) -> int:
+    seed(args.seed, "--seed")
     robot = robot_from_args(args)
     terms = terms_from_args(args)
     info = describe(robot, terms)
-    base = base_parameters(robot, terms, seed=args.seed) if args.base else None
+    base = base_parameters(robot, terms, seed=seed(args.seed, "--seed")) if args.base else None
     if args.format == "json":
         if base is not None:
             info["base"] = base.to_dict()

@@ -8,6 +8,7 @@ import numpy as np
 
 from ..errors import IdentError
 from ..handover.paramfile import load_parameters
+from ..intake import count, number, seed
 from ..motion.simulate import SimulationSettings, read_trajectory, simulate, write_log
 from .common import add_robot_arguments, format_table, print_json, robot_from_args
 
@@ -63,13 +64,13 @@ def run(args) -> int:
     truth = load_parameters(args.truth, robot)
     t, q, dq, ddq = read_trajectory(args.trajectory, robot)
     settings = SimulationSettings(
-        log_rate=args.log_rate,
-        substeps=args.substeps,
+        log_rate=None if args.log_rate is None else number(args.log_rate, "--log-rate", "rate"),
+        substeps=count(args.substeps, "--substeps", 1),
         torque_noise=_noise(args.torque_noise, robot.n),
-        encoder_counts=args.encoder_counts,
-        bandwidth=args.bandwidth,
+        encoder_counts=count(args.encoder_counts, "--encoder-counts", 2, 2**48, limit_name="finer than any encoder (2^48 counts)"),
+        bandwidth=number(args.bandwidth, "--bandwidth", "rate"),
         log_velocity=args.log_velocity,
-        seed=args.seed,
+        seed=seed(args.seed, "--seed"),
     )
     res = simulate(robot, t, q, dq, ddq, truth.inertial, truth.joint_params, settings, progress=not (args.quiet or args.json))
     write_log(args.out, res)

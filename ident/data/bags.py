@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import DataError, IdentError, first_line
 from .profile import LogProfile
-from .rawlog import RawLog, channel_factor, channel_spec, check_times, convert_channel, joint_map
+from .rawlog import RawLog, channel_factor, channel_spec, check_magnitude, check_times, convert_channel, joint_map
 
 _BAG_FIELDS = {"q": "position", "dq": "velocity", "tau": "effort"}
 
@@ -101,6 +101,7 @@ def read_bag(path: Path, robot, prof: LogProfile) -> RawLog:
             spec = channel_spec(prof, model[k], ch)
             f = channel_factor(spec, ch, prof, jt[k], f"{where}: {_BAG_FIELDS[ch]} of '{log_names[k]}'")
             convert_channel(arr[:, k], spec, f)
+            check_magnitude(arr[:, k], ch, f"{where}: {_BAG_FIELDS[ch]} of '{log_names[k]}'", "message")
             if ch == "tau" and spec.limit is not None:
                 limit[k] = spec.limit
     raw = RawLog(where, model, t, q, dq, None, tau, limit, warns)

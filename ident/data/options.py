@@ -13,6 +13,7 @@ import numpy as np
 
 from ..errors import DataError
 from ..fileio import read_yaml
+from ..intake import shown, MAX_SAMPLES, count, number
 from . import conditioning as cond
 
 
@@ -129,7 +130,7 @@ def excitation_options(path) -> dict:
 
 def _check_option(key: str, val, where: str):
     def bad(what):
-        raise DataError(f"{where}: '{key}' {what}, got {val!r}")
+        raise DataError(f"{where}: '{key}' {what}, got {shown(val)}")
 
     if key in ("average", "logged_velocity", "logged_acceleration", "drop_clipped", "parallel_friction"):
         if not isinstance(val, (bool, np.bool_)):
@@ -142,7 +143,8 @@ def _check_option(key: str, val, where: str):
     if key in ("filter_order", "decimate", "harmonics", "savgol_window"):
         if isinstance(val, bool) or not isinstance(val, (int, np.integer)) or val < 1:
             bad("must be a positive integer")
-        return int(val)
+        top, why = _COUNT_LIMITS[key]
+        return count(int(val), f"{where}: '{key}'", 1, top, DataError, why)
     if key == "windows":
         return _parse_windows(val, f"{where}: 'windows'")
     if key == "delay":
@@ -152,12 +154,23 @@ def _check_option(key: str, val, where: str):
         return float(arr) if arr.ndim == 0 else arr
     if isinstance(val, bool) or not isinstance(val, (int, float, np.number)) or not math.isfinite(val):
         bad("must be a finite number")
-    val = float(val)
+    val = number(float(val), f"{where}: '{key}'", _QUANTITY.get(key, "scale"), DataError)
     if key in ("cutoff", "trim", "slow_velocity", "reversal_margin", "stuck_time") and val < 0:
         bad("must not be negative")
     if key in ("max_frequency", "period", "max_gap", "jitter") and val <= 0:
         bad("must be positive")
     return val
+
+
+#: bounds of the numeric options (ident.intake magnitudes) and of the counts, with their reason
+_QUANTITY = {"cutoff": "rate", "max_frequency": "rate", "period": "time", "trim": "time", "jitter": "scale",
+             "reversal_margin": "time", "slow_velocity": "velocity", "max_gap": "scale", "stuck_time": "time"}
+_COUNT_LIMITS = {
+    "filter_order": (16, "Butterworth filters above order 16 are numerically unusable (common practice)"),
+    "decimate": (MAX_SAMPLES, "the sample-count limit"),
+    "harmonics": (10_000, "far above any excitation (common practice: 3 to 20)"),
+    "savgol_window": (MAX_SAMPLES, "the sample-count limit"),
+}
 
 
 def _is_number_list(val) -> bool:
@@ -178,7 +191,7 @@ def _parse_windows(val, where: str) -> list[tuple[float, float]]:
     out = []
     for w in val:
         if not (isinstance(w, (list, tuple)) and len(w) == 2 and _is_number_list(list(w))):
-            raise DataError(f"{where}: window {w!r} is not a [start, end] pair of numbers")
+            raise DataError(f"{where}: window {shown(w)} is not a [start, end] pair of numbers")
         a, b = float(w[0]), float(w[1])
         if not (math.isfinite(a) and math.isfinite(b) and b > a):
             raise DataError(f"{where}: window [{a}, {b}] must have finite start < end")

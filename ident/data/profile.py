@@ -14,6 +14,7 @@ from pathlib import Path
 
 from ..errors import DataError
 from ..fileio import read_yaml
+from ..intake import shown, number
 from .dataset import CHANNELS
 from .options import LogOptions
 
@@ -128,7 +129,7 @@ def _parse_profile(data, where: str) -> LogProfile:
         raise DataError(f"{where}: unknown key '{sorted(unknown)[0]}' (known: {', '.join(sorted(_PROFILE_KEYS))})")
     ver = data.get("log_profile", PROFILE_VERSION)
     if ver != PROFILE_VERSION:
-        raise DataError(f"{where}: log_profile version {ver!r} is not supported (this ident reads version {PROFILE_VERSION})")
+        raise DataError(f"{where}: log_profile version {shown(ver)} is not supported (this ident reads version {PROFILE_VERSION})")
     p = LogProfile(source=where)
     fmt = data.get("format", "auto")
     if fmt not in ("auto", "csv", "parquet", "bag"):
@@ -144,12 +145,12 @@ def _parse_profile(data, where: str) -> LogProfile:
         raise DataError(f"{where}: time: unknown key '{sorted(bad)[0]}' (known: {', '.join(sorted(_TIME_KEYS))})")
     for key in ("column", "unit", "source"):
         if key in tm and not isinstance(tm[key], str):
-            raise DataError(f"{where}: time.{key} must be text, got {tm[key]!r}")
+            raise DataError(f"{where}: time.{key} must be text, got {shown(tm[key])}")
     if "rate" in tm:
         r = tm["rate"]
         if isinstance(r, bool) or not isinstance(r, (int, float)) or not r > 0:
-            raise DataError(f"{where}: time.rate must be a positive sample rate in Hz, got {r!r}")
-        p.rate = float(r)
+            raise DataError(f"{where}: time.rate must be a positive sample rate in Hz, got {shown(r)}")
+        p.rate = number(r, f"{where}: time.rate", "rate", DataError)
         p.time_column = tm.get("column")
     else:
         p.time_column = str(tm.get("column", "time"))
@@ -161,14 +162,14 @@ def _parse_profile(data, where: str) -> LogProfile:
         raise DataError(f"{where}: time.source '{p.time_source}' must be header or log")
     if "topic" in data:
         if not isinstance(data["topic"], str):
-            raise DataError(f"{where}: topic must be text such as /joint_states, got {data['topic']!r}")
+            raise DataError(f"{where}: topic must be text such as /joint_states, got {shown(data['topic'])}")
         p.topic = data["topic"]
     cols = data.get("columns", {})
     if not isinstance(cols, dict) or set(cols) - set(CHANNELS):
         raise DataError(f"{where}: 'columns' must map channels ({', '.join(CHANNELS)}) to patterns like '{{name}}.q'")
     for ch, pat in cols.items():
         if not isinstance(pat, str) or "{name}" not in pat:
-            raise DataError(f"{where}: columns.{ch}: pattern must be text containing {{name}}, got {pat!r}")
+            raise DataError(f"{where}: columns.{ch}: pattern must be text containing {{name}}, got {shown(pat)}")
         p.patterns[ch] = pat
     units = data.get("units", {})
     if not isinstance(units, dict) or set(units) - set(CHANNELS):
@@ -209,11 +210,11 @@ def _parse_joint(jname: str, entry, where: str):
         raise DataError(f"{where}: unknown key '{sorted(bad)[0]}' (known: {', '.join(sorted(_JOINT_KEYS))})")
     log_name = entry.get("name", jname)
     if not isinstance(log_name, (str, int)) or isinstance(log_name, bool):
-        raise DataError(f"{where}: name must be the joint's name in the log, got {log_name!r}")
+        raise DataError(f"{where}: name must be the joint's name in the log, got {shown(log_name)}")
     log_name = str(log_name)
     sign = entry.get("sign", 1)
     if sign not in (1, -1):
-        raise DataError(f"{where}: sign must be 1 or -1, got {sign!r}")
+        raise DataError(f"{where}: sign must be 1 or -1, got {shown(sign)}")
     specs = {}
     for ch in CHANNELS:
         c = entry.get(ch)
@@ -227,21 +228,20 @@ def _parse_joint(jname: str, entry, where: str):
         if bad:
             raise DataError(f"{where}.{ch}: unknown key '{sorted(bad)[0]}' (known: {', '.join(sorted(_CHANNEL_KEYS))})")
         if c.get("column") is not None and not isinstance(c["column"], str):
-            raise DataError(f"{where}.{ch}: column must be a column name, got {c['column']!r}")
+            raise DataError(f"{where}.{ch}: column must be a column name, got {shown(c['column'])}")
         spec = ChannelSpec(column=c.get("column"), explicit=bool(c.get("column")))
         if "unit" in c:
             spec.unit = _unit(ch, c["unit"], f"{where}.{ch}.unit")
         s = c.get("sign", sign)
         if s not in (1, -1):
-            raise DataError(f"{where}.{ch}: sign must be 1 or -1, got {s!r}")
+            raise DataError(f"{where}.{ch}: sign must be 1 or -1, got {shown(s)}")
         spec.sign = float(s)
         for key in ("offset", "gear_ratio", "torque_constant", "limit"):
             if key in c:
                 v = c[key]
-                if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
-                    raise DataError(f"{where}.{ch}.{key}: must be a finite number, got {v!r}")
+                v = number(v, f"{where}.{ch}.{key}", "position" if key == "offset" and ch == "q" else "scale", DataError)
                 if key in ("gear_ratio", "torque_constant", "limit") and v <= 0:
-                    raise DataError(f"{where}.{ch}.{key}: must be positive, got {v!r}")
+                    raise DataError(f"{where}.{ch}.{key}: must be positive, got {shown(v)}")
                 setattr(spec, key, float(v))
         if (spec.gear_ratio or spec.torque_constant or spec.limit) and ch != "tau":
             raise DataError(f"{where}.{ch}: gear_ratio, torque_constant and limit apply to tau only")

@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import DataError
+from ..intake import MAGNITUDE
 from .profile import UNITS, ChannelSpec, LogProfile
 
 
@@ -76,6 +77,21 @@ def convert_channel(x: np.ndarray, spec: ChannelSpec, factor: float) -> None:
     s = spec.sign * factor
     if s != 1.0:
         x *= s
+
+
+#: the ident.intake magnitude bound of each channel, after conversion to SI
+CHANNEL_QUANTITY = {"q": "position", "dq": "velocity", "ddq": "acceleration", "tau": "torque"}
+
+
+def check_magnitude(x: np.ndarray, ch: str, where: str, unit: str) -> None:
+    """Refuse a channel (in SI) holding a value beyond the sane magnitude of its quantity, which
+    would overflow the squares and products of the fit (row or message named)."""
+    limit, si = MAGNITUDE[CHANNEL_QUANTITY[ch]]
+    with np.errstate(invalid="ignore"):
+        bad = np.flatnonzero(np.abs(x) > limit)
+    if bad.size:
+        k = int(bad[0])
+        raise DataError(f"{where}: {x[k]:g} at data {unit} {k + 1} is beyond any sane {CHANNEL_QUANTITY[ch]} (|value| <= {limit:g} {si})")
 
 
 def check_times(t: np.ndarray, where: str, unit: str) -> None:

@@ -16,7 +16,7 @@ import numpy as np
 from ..errors import DataError, first_line
 from .dataset import CHANNELS
 from .profile import TIME_UNITS, LogProfile
-from .rawlog import RawLog, channel_factor, channel_spec, check_times, convert_channel, joint_map
+from .rawlog import RawLog, channel_factor, channel_spec, check_magnitude, check_times, convert_channel, joint_map
 
 TABLE_SUFFIXES = {".csv": "csv", ".txt": "csv", ".parquet": "parquet", ".pq": "parquet"}
 
@@ -98,6 +98,7 @@ def read_table(path: Path, fmt: str, robot, prof: LogProfile) -> RawLog:
             f = channel_factor(spec, ch, prof, jt[k], f"{path}: column '{col}'")
             a[:, k] = _numeric(get(col), path, col)
             convert_channel(a[:, k], spec, f)
+            check_magnitude(a[:, k], ch, f"{path}: column '{col}'", "row")
             if ch == "tau" and spec.limit is not None:
                 limit[k] = spec.limit
         arrays[ch] = a

@@ -41,6 +41,7 @@ from ..arm.parameters import FORMAT, SYM_KEYS, BaseTable, ParameterSet
 from ..arm.spatial import sym_to_matrix, to_vector
 from ..errors import DataError, IdentError
 from ..fileio import read_yaml, write_text
+from ..intake import number, shown
 
 _TOP_KEYS = ("format", "robot", "joints", "terms", "links", "joint_terms", "base_parameters", "method", "data", "diagnostics")
 
@@ -155,12 +156,12 @@ def parameter_set_from_dict(doc, where: str = "parameters") -> ParameterSet:
     )
 
 
-def _num(x, where: str) -> float:
+def _num(x, where: str, quantity: str = "parameter") -> float:
     if isinstance(x, bool) or not isinstance(x, (int, float)):
-        raise DataError(f"{where}: '{x}' is not a number")
-    if not math.isfinite(float(x)):
+        raise DataError(f"{where}: '{shown(x, quotes=False)}' is not a number")
+    if isinstance(x, float) and not math.isfinite(x):
         raise DataError(f"{where}: value is not finite")
-    return float(x)
+    return number(x, where, quantity, DataError)  # huge integers and magnitudes (ident.intake)
 
 
 def _vec(x, size: int, where: str) -> np.ndarray:
@@ -189,7 +190,7 @@ def _link_vector(entry: dict, w: str) -> np.ndarray:
     for k in allowed - {"physical"}:
         if k not in entry:
             raise DataError(f"{w}: missing key '{k}'")
-    m = _num(entry["mass"], f"{w}.mass")
+    m = _num(entry["mass"], f"{w}.mass", "mass")
     if form == "com":
         if m < 0:
             raise DataError(f"{w}.mass: {m:g} kg is negative (a negative mass has no centre of mass; use first_moment/inertia_origin)")

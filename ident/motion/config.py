@@ -9,6 +9,8 @@ from pathlib import Path
 import numpy as np
 
 from ..arm.model import Robot, parse_terms
+from ..intake import check_samples, count, number, shown
+from ..intake import seed as intake_seed
 from ..errors import IdentError
 from ..fileio import read_yaml
 from .config_values import float_list, fraction_number, known_keys, nonneg_number, per_joint_values, period_ticks, positive_number, whole_number
@@ -63,12 +65,16 @@ class ExcitationConfig:
         period = positive_number(d.get("period"), f"{where}: period (s)")
         harmonics = d.get("harmonics")
         if not isinstance(harmonics, int) or isinstance(harmonics, bool) or harmonics < 2:
-            raise IdentError(f"{where}: harmonics: expected an integer >= 2 (start and end at rest take 3 equations per joint), got {harmonics!r}")
+            raise IdentError(f"{where}: harmonics: expected an integer >= 2 (start and end at rest take 3 equations per joint), got {shown(harmonics)}")
+        count(harmonics, f"{where}: harmonics", 2, MAX_HARMONICS, limit_name="far above any excitation design, common practice: 3 to 20")
         rate = positive_number(d.get("rate"), f"{where}: rate (controller rate, Hz)")
+        number(rate, f"{where}: rate (controller rate, Hz)", "rate")
         period_ticks(period, rate, f"{where}: rate")
         periods = d.get("periods", 1)
         if not isinstance(periods, int) or isinstance(periods, bool) or periods < 1:
-            raise IdentError(f"{where}: periods: expected a positive integer, got {periods!r}")
+            raise IdentError(f"{where}: periods: expected a positive integer, got {shown(periods)}")
+        # the trajectory is sampled at the controller rate over every period: bound it by memory
+        check_samples(period * rate * periods, f"{where}: period x rate x periods")
         if "home" not in d:
             raise IdentError(f"{where}: home: required (the pose the motion starts and ends at, rad or m per joint)")
         home = per_joint_values(robot, d["home"], f"{where}: home")
@@ -81,10 +87,17 @@ class ExcitationConfig:
             offset = per_joint_values(robot, offset_spec, f"{where}: offset")
             if harmonics < 3:
                 raise IdentError(f"{where}: offset: a fixed offset needs harmonics >= 3")
-        terms = parse_terms(d.get("terms", "fv,fc"))
+        terms_spec = d.get("terms", "fv,fc")
+        if terms_spec is not None and not isinstance(terms_spec, str) and not (
+                isinstance(terms_spec, list) and all(isinstance(t, str) for t in terms_spec)):
+            raise IdentError(f"{where}: terms: expected term codes such as 'fv,fc' or a list of them, got {shown(terms_spec)}")
+        try:
+            terms = parse_terms(terms_spec)
+        except IdentError as exc:
+            raise IdentError(f"{where}: terms: {exc}") from None
         criterion = d.get("criterion", "cond")
         if criterion not in CRITERIA:
-            raise IdentError(f"{where}: criterion: expected one of {', '.join(CRITERIA)}, got {criterion!r}")
+            raise IdentError(f"{where}: criterion: expected one of {', '.join(CRITERIA)}, got {shown(criterion)}")
 
         lim = d.get("limits") or {}
         if not isinstance(lim, dict):
@@ -131,6 +144,7 @@ class ExcitationConfig:
         budget = opt.get("budget", 60.0)
         if budget is not None:
             budget = positive_number(budget, f"{where}: optimizer.budget (s)")
+            number(budget, f"{where}: optimizer.budget (s)", "time")
         cfg = cls(
             period=period,
             harmonics=harmonics,
@@ -150,14 +164,16 @@ class ExcitationConfig:
             torque_noise=noise,
             points=points,
             regions=regions,
-            seed=whole_number(opt.get("seed", 0), f"{where}: optimizer.seed", 0),
-            starts=whole_number(opt.get("starts", 6), f"{where}: optimizer.starts", 1),
+            seed=intake_seed(opt.get("seed", 0), f"{where}: optimizer.seed"),
+            starts=count(opt.get("starts", 6), f"{where}: optimizer.starts", 1, MAX_STARTS, limit_name="hours of optimizing at the least"),
             budget=budget,
-            max_iterations=whole_number(opt.get("max_iterations", 300), f"{where}: optimizer.max_iterations", 1),
-            design_samples=whole_number(opt.get("design_samples", max(96, 24 * harmonics)), f"{where}: optimizer.design_samples", 8),
-            check_factor=whole_number(opt.get("check_factor", 10), f"{where}: optimizer.check_factor", 1),
+            max_iterations=count(opt.get("max_iterations", 300), f"{where}: optimizer.max_iterations", 1, 10**6, limit_name="L-BFGS-B converges in hundreds"),
+            design_samples=count(opt.get("design_samples", max(96, 24 * harmonics)), f"{where}: optimizer.design_samples", 8, MAX_DESIGN_SAMPLES,
+                                 limit_name="the design grid is evaluated at every iteration"),
+            check_factor=count(opt.get("check_factor", 10), f"{where}: optimizer.check_factor", 1, 1000, limit_name="a 1000x finer check grid"),
             source=where,
         )
+        check_samples(cfg.design_samples * cfg.check_factor, f"{where}: optimizer.design_samples x optimizer.check_factor")
         if cfg.design_samples < 4 * harmonics + 1:
             raise IdentError(f"{where}: optimizer.design_samples: {cfg.design_samples} samples cannot resolve {harmonics} harmonics; use at least {4 * harmonics + 1}")
         return cfg
@@ -167,8 +183,14 @@ class ExcitationConfig:
         import dataclasses
 
         if "criterion" in changes and changes["criterion"] not in CRITERIA:
-            raise IdentError(f"criterion: expected one of {', '.join(CRITERIA)}, got {changes['criterion']!r}")
+            raise IdentError(f"criterion: expected one of {', '.join(CRITERIA)}, got {shown(changes['criterion'])}")
         return dataclasses.replace(self, **changes)
+
+
+#: upper bounds of the optimizer's counts (each is 100x or more what a design needs)
+MAX_HARMONICS = 1000
+MAX_STARTS = 10_000
+MAX_DESIGN_SAMPLES = 1_000_000
 
 
 def load_excitation_config(path, robot: Robot) -> ExcitationConfig:
@@ -189,8 +211,13 @@ def _parse_keepout(robot: Robot, spec, where: str) -> tuple[list[KeepoutPoint], 
         key = f"{where}.points[{k}]"
         if not isinstance(item, dict) or "link" not in item:
             raise IdentError(f"{key}: expected a mapping with link and point (m, in the link frame)")
-        link = str(item["link"])
-        robot.frame(link)  # names an unknown link clearly
+        if not isinstance(item["link"], str):
+            raise IdentError(f"{key}.link: expected a link name, got {shown(item['link'])}")
+        link = item["link"]
+        try:
+            robot.frame(link)
+        except IdentError as exc:
+            raise IdentError(f"{key}.link: {exc}") from None
         pt = float_list(item.get("point", [0.0, 0.0, 0.0]), f"{key}.point", 3)
         name = str(item.get("name", f"{link}@{k}"))
         if any(p.name == name for p in points):
@@ -204,7 +231,7 @@ def _parse_keepout(robot: Robot, spec, where: str) -> tuple[list[KeepoutPoint], 
             raise IdentError(f"{key}: expected a mapping")
         kind = item.get("type")
         if kind not in REGION_KINDS:
-            raise IdentError(f"{key}.type: expected one of {', '.join(REGION_KINDS)}, got {kind!r}")
+            raise IdentError(f"{key}.type: expected one of {', '.join(REGION_KINDS)}, got {shown(kind)}")
         margin = nonneg_number(item.get("margin", 0.0), f"{key}.margin (m)")
         params: dict = {}
         if kind == "plane":

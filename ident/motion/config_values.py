@@ -3,11 +3,11 @@
 
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
 from ..arm.model import Robot
+from ..intake import number, shown
 from ..errors import IdentError
 
 
@@ -26,46 +26,45 @@ def known_keys(d: dict, known: set, where: str) -> None:
 
 def finite_number(v, key: str) -> float:
     if isinstance(v, bool) or v is None:
-        raise IdentError(f"{key}: expected a number, got {v!r}")
-    try:
-        x = float(v)
-    except (TypeError, ValueError):
-        raise IdentError(f"{key}: expected a number, got {v!r}") from None
-    if not math.isfinite(x):
-        raise IdentError(f"{key}: expected a finite number, got {v!r}")
-    return x
+        raise IdentError(f"{key}: expected a number, got {shown(v)}")
+    if not isinstance(v, (int, float)):
+        try:
+            v = float(v)
+        except (TypeError, ValueError):
+            raise IdentError(f"{key}: expected a number, got {shown(v)}") from None
+    return number(v, key, "parameter")
 
 
 def positive_number(v, key: str) -> float:
     x = finite_number(v, key)
     if x <= 0:
-        raise IdentError(f"{key}: must be positive, got {v!r}")
+        raise IdentError(f"{key}: must be positive, got {shown(v)}")
     return x
 
 
 def nonneg_number(v, key: str) -> float:
     x = finite_number(v, key)
     if x < 0:
-        raise IdentError(f"{key}: must not be negative, got {v!r}")
+        raise IdentError(f"{key}: must not be negative, got {shown(v)}")
     return x
 
 
 def fraction_number(v, key: str) -> float:
     x = positive_number(v, key)
     if x > 1:
-        raise IdentError(f"{key}: a fraction of the description's limit must be in (0, 1], got {v!r}")
+        raise IdentError(f"{key}: a fraction of the description's limit must be in (0, 1], got {shown(v)}")
     return x
 
 
 def whole_number(v, key: str, minimum: int) -> int:
     if not isinstance(v, int) or isinstance(v, bool) or v < minimum:
-        raise IdentError(f"{key}: expected an integer >= {minimum}, got {v!r}")
+        raise IdentError(f"{key}: expected an integer >= {minimum}, got {shown(v)}")
     return v
 
 
 def float_list(v, key: str, size: int) -> np.ndarray:
     if not isinstance(v, (list, tuple)) or len(v) != size:
-        raise IdentError(f"{key}: expected a list of {size} numbers, got {v!r}")
+        raise IdentError(f"{key}: expected a list of {size} numbers, got {shown(v)}")
     return np.array([finite_number(x, key) for x in v])
 
 

@@ -10,7 +10,7 @@ import numpy as np
 
 from ..arm.model import Robot
 from ..errors import IdentError
-from ..fileio import atomic_path, write_text
+from ..fileio import atomic_folder, atomic_path, write_text
 from .constraints import prior_torque
 from .design import ExcitationResult
 from .fourier import FourierTrajectory, save_trajectory
@@ -218,11 +218,13 @@ def write_excitation(out_dir, result: ExcitationResult, robot: Robot) -> dict[st
     summ = summary_dict(result)
     json_text = json.dumps(summ, indent=2) + "\n"
     txt = summary_text(result) + "\n"
-    out.mkdir(parents=True, exist_ok=True)
-    paths = {k: out / v for k, v in (("csv", "trajectory.csv"), ("coefficients", "coefficients.yaml"), ("plot", "trajectory.png"), ("summary", "summary.txt"), ("json", "summary.json"))}
-    write_text(paths["csv"], csv_text)
-    save_trajectory(paths["coefficients"], result.trajectory, {"robot": result.robot_name, "rate": cfg.rate, "periods": cfg.periods})
-    plot_trajectory(paths["plot"], result, robot)
-    write_text(paths["summary"], txt)
-    write_text(paths["json"], json_text)
-    return paths
+    names = (("csv", "trajectory.csv"), ("coefficients", "coefficients.yaml"), ("plot", "trajectory.png"), ("summary", "summary.txt"), ("json", "summary.json"))
+    # the set is written into a temporary folder and moved into place whole (atomic_folder)
+    with atomic_folder(out) as tmp:
+        files = {k: tmp / v for k, v in names}
+        write_text(files["csv"], csv_text)
+        save_trajectory(files["coefficients"], result.trajectory, {"robot": result.robot_name, "rate": cfg.rate, "periods": cfg.periods})
+        plot_trajectory(files["plot"], result, robot)
+        write_text(files["summary"], txt)
+        write_text(files["json"], json_text)
+    return {k: out / v for k, v in names}

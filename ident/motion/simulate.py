@@ -22,6 +22,7 @@ are the quantized encoder readings. Everything is deterministic for a seed.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -34,6 +35,7 @@ from ..arm.model import PRISMATIC, Robot, kernel_arrays
 from ..data.conditioning import derivative
 from ..errors import DataError, IdentError, first_line
 from ..fileio import atomic_path
+from ..intake import MAGNITUDE, check_steps
 from ..progress import Progress
 
 
@@ -103,6 +105,21 @@ class SimulationResult:
         return cols
 
 
+def check_reference_range(robot: Robot, q: np.ndarray, where) -> None:
+    """Refuse reference positions (N, n) far outside the joint limits: beyond a tenth of the range
+    (at least 0.05 rad or m) past a finite limit, or beyond the sane magnitude of a position."""
+    lo, hi = np.asarray(robot.lower, dtype=float), np.asarray(robot.upper, dtype=float)
+    finite = np.isfinite(lo) & np.isfinite(hi)
+    slack = np.where(finite, np.maximum(0.1 * np.where(finite, hi - lo, 0.0), 0.05), np.inf)
+    bound = MAGNITUDE["position"][0]
+    with np.errstate(invalid="ignore"):
+        bad = (q < lo - slack) | (q > hi + slack) | (np.abs(q) > bound)
+    if np.any(bad):
+        row, j = (int(v) for v in np.argwhere(bad)[0])
+        raise DataError(f"{where}: column '{robot.joint_names[j]}.q' at data row {row + 1} is {q[row, j]:g}, "
+                        f"far outside the joint limits [{lo[j]:g}, {hi[j]:g}]")
+
+
 def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Read a reference trajectory CSV: ``time`` (s) and per joint ``<joint>.q`` [``.dq``, ``.ddq``].
 
@@ -144,6 +161,7 @@ def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndar
         raise DataError(f"{p}: column 'time': the trajectory must be sampled at a constant rate (the controller's)")
     q = np.column_stack([column(f"{j}.q") for j in robot.joint_names])
     has = lambda s: all(f"{j}.{s}" in df.columns for j in robot.joint_names)  # noqa: E731
+    check_reference_range(robot, q, p)
     dt_mean = float(np.mean(dt))  # the grid is uniform (checked above)
     dq = np.column_stack([column(f"{j}.dq") for j in robot.joint_names]) if has("dq") else derivative(q, dt_mean)
     ddq = np.column_stack([column(f"{j}.ddq") for j in robot.joint_names]) if has("ddq") else derivative(dq, dt_mean)
@@ -259,6 +277,12 @@ def simulate(robot: Robot, t, q_ref, dq_ref, ddq_ref, inertial, joint_params=Non
         if np.any(coef[c] < 0):
             raise IdentError(f"true joint parameters '{c}': must be non-negative for a passive plant")
     log_rate = rate if s.log_rate is None else float(s.log_rate)
+    if not (math.isfinite(log_rate) and log_rate > 0):
+        raise IdentError(f"--log-rate: expected a positive number of Hz, got {log_rate:g}")
+    if s.substeps < 1:
+        raise IdentError(f"--substeps: must be at least 1, got {s.substeps}")
+    # the integration runs substeps steps per control tick: bound the work by time
+    check_steps(float(K) * s.substeps, f"--substeps {s.substeps}: {K} ticks x substeps")
     log_every = int(round(rate / log_rate))
     if log_every < 1 or abs(rate / log_every - log_rate) > 1e-6 * log_rate:
         raise IdentError(f"--log-rate: {log_rate:g} Hz does not divide the control rate {rate:g} Hz")
