@@ -247,15 +247,20 @@ def test_period_averaging_per_segment_with_noise_variance(tmp_path, ur5):
         tau = 4.0 * q + sd * rng.standard_normal(q.shape)
         qn = q + 1e-5 * rng.standard_normal(q.shape)
         files.append(to_csv(table(t + 50.0 * k, ur5.joint_names, qn, tau), tmp_path / f"p{k}.csv"))
-    ds = load_dataset(files, robot=ur5, options={"period": period, "harmonics": ur5.n})
+    ds = load_dataset(files, robot=ur5, options={"period": period, "harmonics": ur5.n, "average": True})
     assert len(ds.segments) == 2 and all(s.n_samples == 2000 for s in ds.segments)
     assert ds.info["periods_averaged"] == 10
     # pooled over 2 x 2000 samples x 4 degrees of freedom: a few per cent
     np.testing.assert_allclose(ds.noise_var, sd**2, rtol=0.05)
     np.testing.assert_allclose(ds.tau, 4.0 * ds.q, atol=5 * sd.max() / np.sqrt(5))
     # a wrong period is noticed
-    bad = load_dataset(files, robot=ur5, options={"period": 1.5, "harmonics": ur5.n})
+    bad = load_dataset(files, robot=ur5, options={"period": 1.5, "harmonics": ur5.n, "average": True})
     assert any("period" in w and "periodic" in w for w in bad.warnings)
+    # without averaging (the default) the samples stay and the spread between periods, the first
+    # (start-up) left out, still gives the noise variance
+    kept = load_dataset(files, robot=ur5, options={"period": period, "harmonics": ur5.n})
+    assert kept.n_samples > 4 * 2000 and kept.info["periods_averaged"] == 8
+    np.testing.assert_allclose(kept.noise_var, sd**2, rtol=0.06)
 
 
 def test_slow_samples_flagged(ur5, ur5_log):

@@ -92,7 +92,7 @@ def test_report_of_a_fit_with_held_out_check(tmp_path, demo):
     write_report(out, robot, ps, validation=val, validation_data=held, fit_data=fitd, reference=truth)
     text = out.read_text(encoding="utf-8")
     p = check_html(text)
-    assert len(p.images) == 2  # data coverage and the held-out torque plots
+    assert len(p.images) == 3  # data coverage, the friction curves and the held-out torque plots
     for title in ("The arm and the data", "What joint torques can identify", "How well the motion excites the model",
                   "Identified values", "Held-out check", "Before you use this model"):
         assert title in text

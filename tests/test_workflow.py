@@ -212,7 +212,7 @@ def test_demo_report_is_valid_html_with_decodable_figures(demo_run):
     out, summary = demo_run
     text = Path(summary["report"]).read_text(encoding="utf-8")
     p = check_html(text)
-    assert len(p.images) == 2  # data coverage and the held-out torque plots
+    assert len(p.images) == 3  # data coverage, the friction curves and the held-out torque plots
     for title in ("The arm and the data", "Identified values", "Held-out check", "Before you use this model"):
         assert title in text
     robot = ident.load_robot(URDF)
