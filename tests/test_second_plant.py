@@ -17,8 +17,8 @@ and, for moving samples, measured torque through one zero-phase 20 Hz low-pass):
 (c) every link physically consistent.
 
 The plant's true parameters with its true friction curve meet (a) and (b) (checked below), so
-both are attainable. The defaults are known to be biased today: the tests of (a) and (b) are
-marked xfail (not strict) until they are fixed.
+both are attainable. With the default options (a) and (b) are
+now met except (a) on the UR5 (1.07x, marked xfail, not strict).
 """
 
 from __future__ import annotations
@@ -203,15 +203,18 @@ def test_perfect_model_meets_the_checks(key, second_plant):
 # ------------------------------------------------------------------------------------------------
 # ident with its default options
 # ------------------------------------------------------------------------------------------------
-@pytest.mark.xfail(strict=False, raises=AssertionError, reason="defaults not yet unbiased")
-@pytest.mark.parametrize("key", ARMS)
+@pytest.mark.parametrize("key", [
+    # measured: at most 1.067x the textbook's error on the UR5's moving samples (shoulder_lift), where
+    # the textbook fits only the fast samples and the default model also fits the slow ones
+    pytest.param("ur5", marks=pytest.mark.xfail(strict=False, raises=AssertionError, reason="UR5 moving-sample error up to 1.07x the textbook's")),
+    "panda"])
 def test_defaults_moving_error_no_worse_than_textbook(key, second_plant):
-    # (a) measured today: 1.8-3.2x the textbook's error on the UR5, 1.1-1.6x on the Panda
+    # (a) measured before parallel filtering and the data-chosen defaults: 1.8-3.2x the textbook's
+    # error on the UR5, 1.1-1.6x on the Panda; now within 1.07x and 1.0x
     e = second_plant(key).errors
     assert np.all(e["ident"].moving <= TOLERANCE * e["textbook"].moving), (e["ident"].moving, e["textbook"].moving)
 
 
-@pytest.mark.xfail(strict=False, raises=AssertionError, reason="defaults not yet unbiased")
 @pytest.mark.parametrize("key", ARMS)
 def test_defaults_error_within_noise(key, second_plant):
     # (b) measured today: up to 2.2 sigma on the UR5's heavy joints (fc sign(q') at reversals);
