@@ -299,6 +299,8 @@ BAD_OPTIONS = [
     ("fit", ["--cutoff", "inf"], "cutoff"),
     ("fit", ["--cutoff", "1e300"], "cutoff"),
     ("fit", ["--trim", "nan"], "trim"),
+    ("fit", ["--trim", "1000"], "option trim"),  # the option that left nothing is named, not the log
+    ("fit", ["--method", "consistent", "--total-mass", "1e-6"], "total mass 1e-06 kg"),  # why the solver failed, with the bound
     ("fit", ["--harmonics", "0"], "harmonics"),
     ("fit", ["--decimate", "0"], "decimate"),
     ("fit", ["--window", "5:1"], "window"),

@@ -205,7 +205,10 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
     else:
         trim = int(round((opts.trim if opts.trim is not None else 2.0 / cutoff) * fs))
     if not periodic and cutoff and m < max(cond.min_filter_samples(opts.filter_order), 2 * trim + 3):
-        warnings.append(f"{where}: only {m} samples, too short to filter; skipped")
+        if 2 * trim + 3 > m and opts.trim is not None:
+            warnings.append(f"{where}: trim {opts.trim:g} s at both ends leaves nothing of its {m * dt:.6g} s (option trim); skipped")
+        else:
+            warnings.append(f"{where}: only {m} samples, too short to filter; skipped")
         counts["short"] += m
         return []
     keep = np.ones(m, dtype=bool)
@@ -222,6 +225,8 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
     counts["short"] += int(keep.sum()) - sum(b - a for a, b in runs)
     sel = [np.arange(a, b, opts.decimate) for a, b in runs]
     if not sel:
+        if trim and opts.trim is not None and 2 * trim >= m:
+            warnings.append(f"{where}: trim {opts.trim:g} s at both ends leaves nothing of its {m * dt:.6g} s (option trim); skipped")
         return []
     counts["decimated"] += sum(b - a for a, b in runs) - sum(len(s) for s in sel)
     allsel = np.concatenate(sel)

@@ -171,7 +171,11 @@ def consistent_fit(robot, terms, P, red_w: Reduced, wls: LeastSquares, prior_ful
         prob = cp.Problem(cp.Minimize(obj), cons)
         status = _solve_problem(prob, solver)
         if status not in ("optimal", "optimal_inaccurate") or z.value is None:
-            raise NumericalError(f"consistent fit: solver {solver} ended with status '{status}' (check the bounds: they may be infeasible)")
+            given = [f"total mass {bounds.total_mass:g} kg"] if bounds.total_mass is not None else []
+            given += [f"mass of {b} {lo:g}..{hi:g} kg" for b, (lo, hi) in bounds.mass.items()] + [f"COM box of {b}" for b in bounds.com]
+            why = (f"the bounds ({'; '.join(given)}) cannot hold together with the data's base parameters and physical links"
+                   if given else "check the data: the physical constraints admit no fit")
+            raise NumericalError(f"consistent fit: solver {solver} ended with status '{status}': {why}")
         full = M @ np.asarray(z.value, float)
         info.update(stage="trade-off", status=status)
     info["seconds"] = round(time.perf_counter() - t0, 3)
