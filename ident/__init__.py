@@ -33,6 +33,8 @@ _LAZY = {
     "ParameterSet": ".arm.parameters",
     "load_parameters": ".handover.paramfile",
     "parameter_set_from_vector": ".arm.parameters",
+    "description_parameters": ".arm.parameters",
+    "make_context": ".arm.parameters",
     "save_parameters": ".handover.paramfile",
     "Dataset": ".data.dataset",
     "LogOptions": ".data.options",

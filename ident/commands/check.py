@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 
 from ..handover.check import validate_dataset
-from ..handover.paramfile import load_parameters
-from .common import add_robot_arguments, print_json, robot_from_args
-from .logs import add_log_arguments, dataset_from_args
+from ..data.load import load_dataset
+from .common import add_robot_arguments, conditioning_for_params, print_json, robot_for_params
+from .logs import add_log_arguments, options_from_args
 
 EXAMPLE = """\
 examples:
@@ -44,9 +44,9 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
-    robot = robot_from_args(args)
-    ps = load_parameters(args.params, robot)
-    data = dataset_from_args(args, robot)
+    robot, ps = robot_for_params(args, args.params)
+    opts = conditioning_for_params(ps, options_from_args(args), args.params)
+    data = load_dataset(args.logs, robot=robot, profile=args.profile, options=opts)
     val = validate_dataset(robot, ps, data)
     if args.report:
         from ..handover.report import write_report

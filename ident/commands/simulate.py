@@ -7,9 +7,8 @@ import argparse
 import numpy as np
 
 from ..errors import IdentError
-from ..handover.paramfile import load_parameters
 from ..motion.simulate import SimulationSettings, read_trajectory, simulate, write_log
-from .common import add_robot_arguments, format_table, print_json, robot_from_args
+from .common import add_robot_arguments, format_table, print_json, robot_for_params
 
 EXAMPLE = """\
 example:
@@ -59,8 +58,7 @@ def _noise(text: str, n: int) -> np.ndarray:
 
 
 def run(args) -> int:
-    robot = robot_from_args(args)
-    truth = load_parameters(args.truth, robot)
+    robot, truth = robot_for_params(args, args.truth)
     t, q, dq, ddq = read_trajectory(args.trajectory, robot)
     settings = SimulationSettings(
         log_rate=args.log_rate,
