@@ -120,6 +120,7 @@ def robot_for_params(args: argparse.Namespace, params_path, robot_path=None):
     ctx = ps.context or {}
     robot_path = robot_path or args.robot
     if not ctx:
+        args.robot = robot_path
         robot = robot_from_args(args)
         return robot, ps.check_robot(robot, where=str(params_path))
     joints = _split(args.joints)

@@ -57,10 +57,9 @@ def inertial_xml(pi: np.ndarray, indent: str, step: str = "  ", note: str = "", 
         m, c, I = from_vector(pi)
     else:
         m, c, I = rounded_form(pi, digits)
-    _n = _num
 
-    def _num(x):  # noqa: E306  (the numbers were rounded: print them with the same digits)
-        return _n(x, digits)
+    def num(x):  # the numbers were rounded: print them with the same digits
+        return _num(x, digits)
 
     inner = indent + step
     lines = []
@@ -70,10 +69,10 @@ def inertial_xml(pi: np.ndarray, indent: str, step: str = "  ", note: str = "", 
     else:
         lines.append("<inertial>")
     lines += [
-        f'{inner}<origin xyz="{_num(c[0])} {_num(c[1])} {_num(c[2])}" rpy="0 0 0"/>',
-        f'{inner}<mass value="{_num(m)}"/>',
-        f'{inner}<inertia ixx="{_num(I[0, 0])}" ixy="{_num(I[0, 1])}" ixz="{_num(I[0, 2])}" '
-        f'iyy="{_num(I[1, 1])}" iyz="{_num(I[1, 2])}" izz="{_num(I[2, 2])}"/>',
+        f'{inner}<origin xyz="{num(c[0])} {num(c[1])} {num(c[2])}" rpy="0 0 0"/>',
+        f'{inner}<mass value="{num(m)}"/>',
+        f'{inner}<inertia ixx="{num(I[0, 0])}" ixy="{num(I[0, 1])}" ixz="{num(I[0, 2])}" '
+        f'iyy="{num(I[1, 1])}" iyz="{num(I[1, 2])}" izz="{num(I[2, 2])}"/>',
         f"{indent}</inertial>",
     ]
     return "\n".join(lines)
