@@ -88,3 +88,16 @@ def test_collision_thresholds_keep_their_false_alarm_rate_on_a_second_log(setup,
     err = data.tau - ident.inverse_dynamics(robot, data.q, data.dq, data.ddq, ps.inertial, ps.joint_params)
     rates = false_alarm_rates(ps.collision, robot.joint_names, err)
     assert np.all(rates >= alpha / 3) and np.all(rates <= 3 * alpha), rates
+
+
+@pytest.mark.xfail(strict=True, reason="closed-loop log of our simulator: the zero-order-hold torque leads the sampled motion by "
+                   "half a control tick and the low-passed Coulomb step differs from sign(q') past the reversal margin; with "
+                   "the true parameters moving RMS/floor is 3-5 at the default cutoff, 1.3-2.3 at 10 Hz (1.1-1.4 with the "
+                   "half-tick removed). Expected to pass once the Coulomb columns follow the filtered torque.")
+def test_true_parameters_on_the_closed_loop_demo_log_sit_on_the_floor(capsys):
+    demo = DEMO_URDF.parent
+    assert main(["check", str(DEMO_URDF), str(demo / "sprout6_truth.yaml"), str(demo / "sprout6_heldout.csv"),
+                 "--period", "8", "--harmonics", "4", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    for j, figs in out["against_noise"]["moving"].items():
+        assert 0.9 <= figs["ratio"] <= 1.1, (j, figs["ratio"])
