@@ -72,6 +72,9 @@ _LAZY = {
     "export_parameters": ".handover.export",
     "export_urdf": ".handover.export",
     "export_urdf_text": ".handover.export",
+    "export_mjcf": ".handover.mjcf",
+    "collision_thresholds": ".handover.collision",
+    "noise_floor": ".handover.noise",
     "render_report": ".handover.report",
     "write_report": ".handover.report",
 }
