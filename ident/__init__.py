@@ -38,6 +38,8 @@ _LAZY = {
     "ParameterSet": ".arm.parameters",
     "load_parameters": ".handover.paramfile",
     "parameter_set_from_vector": ".arm.parameters",
+    "description_parameters": ".arm.parameters",
+    "make_context": ".arm.parameters",
     "save_parameters": ".handover.paramfile",
     "Dataset": ".data.dataset",
     "LogOptions": ".data.options",
@@ -75,6 +77,9 @@ _LAZY = {
     "export_parameters": ".handover.export",
     "export_urdf": ".handover.export",
     "export_urdf_text": ".handover.export",
+    "export_mjcf": ".handover.mjcf",
+    "collision_thresholds": ".handover.collision",
+    "noise_floor": ".handover.noise",
     "render_report": ".handover.report",
     "write_report": ".handover.report",
 }

@@ -19,6 +19,7 @@ from .errors import IdentError
 # Order here is the order in `ident --help`.
 COMMANDS = [
     "model",
+    "prior",
     "excite",
     "simulate",
     "logs",

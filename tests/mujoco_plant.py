@@ -35,9 +35,9 @@ from pathlib import Path
 
 import mujoco
 import numpy as np
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
-from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 #: Control and log rate, Hz.
 RATE = 1000.0

@@ -11,7 +11,6 @@ from pathlib import Path
 
 import pytest
 import yaml
-
 from robust_kit import assert_clean_refusal, make_kit, run_cli, snapshot
 
 KIT_FILES = ("arm.urdf", "arm_dh.yaml", "params.yaml", "run.csv", "traj.csv", "excite.yaml", "profile.yaml")

@@ -14,9 +14,9 @@ import time
 from pathlib import Path
 
 import pytest
+from robust_kit import make_kit, run_cli, snapshot
 
 import ident.fileio
-from robust_kit import make_kit, run_cli, snapshot
 
 ROOT = Path(__file__).resolve().parents[1]
 

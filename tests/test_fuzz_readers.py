@@ -12,10 +12,10 @@ import pytest
 import yaml
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from robust_kit import make_kit
 
 import ident
 from ident.errors import IdentError
-from robust_kit import make_kit
 
 FUZZ = settings(max_examples=40, deadline=None, derandomize=True, suppress_health_check=list(HealthCheck), database=None)
 

@@ -6,6 +6,8 @@ are compared with pinocchio's reading of the same URDF (`pin.buildModelFromUrdf`
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pinocchio as pin
 import pytest
@@ -14,6 +16,7 @@ from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 
 import ident
 from ident.arm.parameters import FORMAT, BaseTable, parameter_set_from_vector
+from ident.cli import main
 from ident.errors import DataError, IdentError
 from ident.handover.paramfile import load_parameters, save_parameters
 
@@ -134,3 +137,72 @@ def test_not_yaml_and_missing(tmp_path, ur5):
         load_parameters(tmp_path / "nope.yaml")
     with pytest.raises(IdentError, match="expected 60 values"):
         parameter_set_from_vector(ur5, np.zeros(59))
+
+
+# -- a parameter file from a description, and the context it carries --------------------------
+
+
+def test_prior_from_the_ur5_description_reads_back_exactly_and_simulates(tmp_path, capsys):
+    from conftest import UR5, erd_path
+
+    path = erd_path(UR5)
+    robot = ident.load_robot(path)
+    out = tmp_path / "ur5_prior.yaml"
+    assert main(["prior", str(path), "--term", "fv=0.5", "--term", "shoulder_pan_joint.fc=1.5", "--out", str(out), "--quiet"]) == 0
+    ps = ident.load_parameters(out, robot)
+    # the description's values (as our URDF reader merges them; pin agrees with that reader in test_dynamics_reference)
+    assert np.allclose(ps.inertial, robot.prior, rtol=1e-12, atol=1e-15)
+    assert ps.joint_params["fv"].tolist() == [0.5] * 6 and ps.joint_params["fc"][0] == 1.5
+    assert ps.context["locked"] == {} and ps.context["gravity"] == [0.0, 0.0, -9.81]
+    # ident simulate takes it as the truth
+    traj = tmp_path / "traj.csv"
+    t = np.arange(200) / 100.0
+    cols = {"time": t}
+    for k, j in enumerate(robot.joint_names):
+        cols[f"{j}.q"] = 0.2 * np.sin(2 * np.pi * 0.5 * t + k)
+    import pandas as pd
+
+    pd.DataFrame(cols).to_csv(traj, index=False)
+    log = tmp_path / "sim.csv"
+    assert main(["simulate", str(path), "--trajectory", str(traj), "--truth", str(out), "--out", str(log), "--quiet"]) == 0
+    assert log.exists()
+
+
+def test_context_is_taken_from_the_file_and_a_conflicting_option_is_refused(tmp_path, capsys):
+    from conftest import PANDA, PANDA_FINGERS_LOCKED, erd_path
+
+    path = erd_path(PANDA)
+    locks = ",".join(f"{k}={v}" for k, v in PANDA_FINGERS_LOCKED.items())
+    params = tmp_path / "panda.yaml"
+    assert main(["prior", str(path), "--lock", locks, "--out", str(params), "--quiet"]) == 0
+    # export needs no --lock: the file says where the fingers were
+    out = tmp_path / "panda.urdf"
+    assert main(["export", str(params), "--urdf", str(path), "--out", str(out), "--quiet"]) == 0
+    # the same lock is accepted, another position is refused naming both values
+    assert main(["export", str(params), "--urdf", str(path), "--lock", locks, "--out", str(out), "--quiet"]) == 0
+    finger = next(iter(PANDA_FINGERS_LOCKED))
+    bad = tmp_path / "bad.urdf"
+    assert main(["export", str(params), "--urdf", str(path), "--lock", f"{finger}=0.035", "--out", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "0.035" in err and f"{PANDA_FINGERS_LOCKED[finger]:g}" in err and not bad.exists()
+    assert main(["export", str(params), "--urdf", str(path), "--gravity", "0,0,-9.7", "--out", str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "-9.7" in err and "-9.81" in err
+
+
+def test_a_fit_records_its_conditioning_and_check_refuses_another(tmp_path, capsys):
+    from pathlib import Path
+
+    demo = Path(__file__).resolve().parents[1] / "datasets_demo"
+    params = tmp_path / "fit.yaml"
+    assert main(["fit", str(demo / "sprout6.urdf"), str(demo / "sprout6_excite.csv"), "--period", "10", "--harmonics", "5",
+                 "--cutoff", "8", "--method", "ols", "--out", str(params), "--quiet"]) == 0
+    ps = ident.load_parameters(params)
+    assert ps.context["conditioning"]["cutoff"] == 8.0
+    held = [str(demo / "sprout6.urdf"), str(params), str(demo / "sprout6_heldout.csv"), "--period", "8", "--harmonics", "4"]
+    assert main(["check", *held, "--cutoff", "5"]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and "--cutoff 5" in err and "cutoff 8" in err
+    assert main(["check", *held, "--json"]) == 0  # the file's 8 Hz is used
+    out = json.loads(capsys.readouterr().out)
+    assert "8 Hz" in out["noise_floor"]["method"]

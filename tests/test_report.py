@@ -100,6 +100,11 @@ def test_report_of_a_fit_with_held_out_check(tmp_path, demo):
         assert j in text
     # the figures in the table are the validation's own
     assert f"{val.rms[1]:.4g}" in text and f"{val.r2[1]:.4f}" in text
+    # legibility: the "at t" column of the terminal table, the noise floor and collision tables,
+    # regrouping relations that wrap
+    assert "at t (s)" in text and f"{val.max_error_time[1]:.3f}" in text
+    assert "RMS error against the noise floor" in text and "collision-detection thresholds" in text
+    assert '<pre class="wrap">' in text
     assert "ISO 10218" in text  # the safety cautions travel with the report
 
 

@@ -25,14 +25,14 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import heldout_check as hc
 import mujoco
+import mujoco_plant as mp
 import numpy as np
 import pytest
-
-import heldout_check as hc
-import ident
-import mujoco_plant as mp
 import textbook_fit as tb
+
+import ident
 
 ARMS = ["ur5", "panda"]
 TOLERANCE = 1.05  # (a): 5 % above the textbook script's error

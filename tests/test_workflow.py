@@ -98,8 +98,9 @@ def test_exported_demo_urdf_matches_the_identified_model_in_pin(demo_run):
     dq, ddq = rng.normal(size=(2, 30, robot.n))
     ours = ident.inverse_dynamics(robot, q, dq, ddq, ps.inertial)
     ref = np.array([pin.rnea(model, data, q[k], dq[k], ddq[k]) for k in range(30)])
-    # reference library pin on the exported file: same inverse dynamics to 1e-9 relative
-    assert np.abs(ours - ref).max() <= 1e-9 * np.abs(ref).max()
+    # reference library pin on the exported file: same inverse dynamics to 1e-6 relative (the file has
+    # 7 significant digits; tests/test_export.py checks 1e-9 with 12 digits)
+    assert np.abs(ours - ref).max() <= 1e-6 * np.abs(ref).max()
 
 
 def test_demo_data_and_its_packaged_copy_are_identical():

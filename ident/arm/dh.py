@@ -50,7 +50,7 @@ import numpy as np
 
 from ..errors import ModelError
 from ..fileio import read_yaml
-from ..intake import shown, number
+from ..intake import number, shown
 from .model import Robot
 from .spatial import rpy_to_matrix, to_vector, transform_params
 from .tree import JointSpec, LinkSpec, build_robot

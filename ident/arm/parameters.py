@@ -56,6 +56,11 @@ class ParameterSet:
     terms : joint-term codes carried (canonical order).
     base : optional :class:`BaseTable`.
     method, data, diagnostics : optional free-form dicts (plain YAML types).
+    context : how the model was made and must be used (see :func:`make_context`): ``description``
+        (file name), ``locked`` {joint: position, rad or m}, ``gravity`` (3,) m/s^2 and
+        ``conditioning`` (the log settings the fit used). Empty for files written before it existed.
+    collision : optional collision-detection thresholds from a held-out check (see
+        :mod:`ident.handover.collision`).
     """
 
     robot_name: str
@@ -68,6 +73,8 @@ class ParameterSet:
     method: dict = field(default_factory=dict)
     data: dict = field(default_factory=dict)
     diagnostics: dict = field(default_factory=dict)
+    context: dict = field(default_factory=dict)
+    collision: dict = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         n = len(self.joint_names)
@@ -133,6 +140,8 @@ class ParameterSet:
             method=self.method,
             data=self.data,
             diagnostics=self.diagnostics,
+            context=self.context,
+            collision=self.collision,
         )
 
     def to_dict(self) -> dict:
@@ -164,7 +173,7 @@ class ParameterSet:
                 {"name": nm, "value": _f(v), "std": _f(s), "relation": rel}
                 for nm, v, s, rel in zip(self.base.names, self.base.values, self.base.std, self.base.relations)
             ]
-        for key in ("method", "data", "diagnostics"):
+        for key in ("context", "method", "data", "diagnostics", "collision"):
             val = getattr(self, key)
             if val:
                 doc[key] = _plain(val)
@@ -205,7 +214,7 @@ def parameter_set_from_vector(robot: Robot, params, terms=(), **extra) -> Parame
     params : (10 n + n len(terms),) full vector in regressor column order, or (n, 10) inertial
         parameters alone when `terms` is empty.
     terms : joint-term codes carried by `params`.
-    **extra : `base`, `method`, `data`, `diagnostics` passed to :class:`ParameterSet`.
+    **extra : `base`, `method`, `data`, `diagnostics`, `context`, `collision` passed to :class:`ParameterSet`.
     """
     codes = parse_terms(terms)
     p = np.asarray(params, dtype=float).reshape(-1)
@@ -223,4 +232,53 @@ def parameter_set_from_vector(robot: Robot, params, terms=(), **extra) -> Parame
         joint_params={c: jt[:, k].copy() for k, c in enumerate(codes)},
         terms=codes,
         **extra,
+    )
+
+
+#: Conditioning settings that describe how a model's torques were compared (kept in the context);
+#: the others (period, windows, trims, gaps) describe one log and are not carried over.
+CONTEXT_CONDITIONING = ("cutoff", "filter_order", "derivative", "savgol_window", "logged_velocity",
+                        "logged_acceleration", "decimate", "slow_velocity", "reversal_margin", "delay")
+
+
+def make_context(robot: Robot, conditioning: dict | None = None) -> dict:
+    """The context a parameter set carries: description file name, locked joints with their
+    positions (rad or m), gravity (3,) m/s^2, and the conditioning settings in
+    :data:`CONTEXT_CONDITIONING` taken from `conditioning` (e.g. ``Dataset.info["options"]`` with
+    the resolved ``cutoff``). The joint selection and the terms are the file's ``joints`` and ``terms``.
+    """
+    from pathlib import Path
+
+    ctx = {"description": Path(robot.source).name if robot.source else "",
+           "locked": {j: float(v) for j, v in robot.locked.items()},
+           "gravity": [float(g) for g in robot.gravity]}
+    if conditioning:
+        ctx["conditioning"] = {k: _plain(conditioning[k]) for k in CONTEXT_CONDITIONING if conditioning.get(k) is not None}
+    return ctx
+
+
+def description_parameters(robot: Robot, terms=(), joint_params: dict | None = None) -> ParameterSet:
+    """The description's own values as a :class:`ParameterSet`: each body's inertial parameters as
+    the description gives them (merged through fixed and locked joints), and per-joint terms from
+    `joint_params` ({code: scalar or (n,)}, zero when absent). With its context filled in, it can
+    be saved as a parameter file to edit as a prior or as the truth of a simulation.
+    """
+    codes = parse_terms(terms)
+    jp = {}
+    for code, val in (joint_params or {}).items():
+        if code not in codes:
+            raise IdentError(f"joint term '{code}' is given but not among the terms {list(codes)}")
+        v = np.broadcast_to(np.asarray(val, dtype=float), (robot.n,)).copy()
+        if not np.all(np.isfinite(v)):
+            raise IdentError(f"joint term '{code}': non-finite value")
+        jp[code] = v
+    return ParameterSet(
+        robot_name=robot.name,
+        joint_names=list(robot.joint_names),
+        body_names=list(robot.body_names),
+        inertial=robot.prior.copy(),
+        joint_params=jp,
+        terms=codes,
+        method={"name": "description", "note": "the robot description's own values, not identified"},
+        context=make_context(robot),
     )

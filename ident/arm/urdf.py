@@ -73,6 +73,13 @@ def _link_params(link, where) -> np.ndarray:
 
 def parse_urdf(text: str, where: str = "URDF", joints=None, locked=None) -> Robot:
     """Parse URDF text; see :func:`load_urdf`. `where` names the source in error messages."""
+    name, links, specs = urdf_specs(text, where)
+    return build_robot(name, links, specs, selected=joints, locked=locked, source=where, source_kind="urdf", where=where)
+
+
+def urdf_specs(text: str, where: str = "URDF"):
+    """The links and joints of URDF text as written, before any locking or merging:
+    (robot name, [LinkSpec] in file order, [JointSpec] in file order)."""
     try:
         root = SafeET.fromstring(text)
     except DefusedXmlException as exc:
@@ -125,7 +132,7 @@ def parse_urdf(text: str, where: str = "URDF", joints=None, locked=None) -> Robo
                 if getattr(spec, key) <= 0:
                     setattr(spec, key, np.inf)  # URDF files often carry 0 for "not given"
         specs.append(spec)
-    return build_robot(name, links, specs, selected=joints, locked=locked, source=where, source_kind="urdf", where=where)
+    return name, links, specs
 
 
 def load_urdf(path, joints=None, locked=None) -> Robot:

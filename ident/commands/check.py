@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import argparse
 
+from ..data.load import load_dataset, read_logs
+from ..errors import IdentError
 from ..handover.check import validate_dataset
-from ..handover.paramfile import load_parameters
-from .common import add_robot_arguments, print_json, robot_from_args
-from .logs import add_log_arguments, dataset_from_args
+from ..handover.collision import FALSE_ALARM
+from ..handover.paramfile import save_parameters
+from .common import add_robot_arguments, conditioning_for_params, print_json, robot_for_params
+from .logs import add_log_arguments, options_from_args
 
 EXAMPLE = """\
 examples:
@@ -19,7 +22,15 @@ Per joint: RMS of measured minus predicted torque, that RMS as a percentage of t
 torque range, R^2 and the largest error (with its time); per link: whether the identified inertial
 parameters are physically consistent (pseudo-inertia positive semidefinite). Samples slower than
 --slow-velocity are left out of a joint's figures when the model has Coulomb friction.
-Exit status 0 also when the fit is poor: read the figures (or --json).
+
+Against the noise: per joint the expected noise floor of the compared (low-passed) torque and how it
+was estimated (period averaging with --period/--excitation, else differences of the raw torque),
+and RMS / floor for moving, slow and stuck samples, for the parameters and for the description's own
+values ('prior'). Collision-detection thresholds for --false-alarm alarms per sample, with the rate
+each has on the held-out data; --out writes them into a copy of the parameter file. They are a
+starting point: confirm them on the robot with its safety functions on.
+The joints, locks, gravity and conditioning come from the parameter file; an option that
+contradicts it is refused. Exit status 0 also when the fit is poor: read the figures (or --json).
 """
 
 
@@ -38,16 +49,27 @@ def add_parser(sub) -> None:
     p.add_argument("logs", nargs="+", metavar="LOG", help="held-out log files")
     add_log_arguments(p)
     p.add_argument("--report", metavar="HTML", help="also write a self-contained HTML report")
+    p.add_argument("--false-alarm", type=float, default=FALSE_ALARM, metavar="RATE",
+                   help=f"false-alarm rate per sample of the collision-detection thresholds (default {FALSE_ALARM:g})")
+    p.add_argument("--out", metavar="PARAMS", help="write the parameter file with the collision thresholds added (YAML)")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
     p.set_defaults(func=run)
 
 
 def run(args) -> int:
-    robot = robot_from_args(args)
-    ps = load_parameters(args.params, robot)
-    data = dataset_from_args(args, robot)
-    val = validate_dataset(robot, ps, data)
+    robot, ps = robot_for_params(args, args.params)
+    opts = conditioning_for_params(ps, options_from_args(args), args.params)
+    data = load_dataset(args.logs, robot=robot, profile=args.profile, options=opts)
+    raw = read_logs(args.logs, robot=robot, profile=args.profile, options=opts) if data.noise_var is None else None
+    if not 0 < args.false_alarm < 0.5:
+        raise IdentError(f"--false-alarm: {args.false_alarm:g} is not a rate between 0 and 0.5 per sample")
+    val = validate_dataset(robot, ps, data, raw=raw, false_alarm=args.false_alarm)
+    if args.out:
+        if not val.collision:
+            raise IdentError(f"--out: no collision thresholds to write ({val.notes[-1] if val.notes else 'none computed'})")
+        ps.collision = dict(val.collision, logs=[str(f) for f in args.logs])
+        save_parameters(args.out, ps)
     if args.report:
         from ..handover.report import write_report
 
@@ -57,6 +79,8 @@ def run(args) -> int:
         out["warnings"] = list(data.warnings)
         if args.report:
             out["report"] = args.report
+        if args.out:
+            out["out"] = args.out
         print_json(out)
     elif not args.quiet:
         print(f"{robot.name}: {args.params} on {len(args.logs)} held-out log(s), {data.n_samples} samples")
@@ -69,4 +93,6 @@ def run(args) -> int:
             print("warning: some links are not physically consistent; refit with --method consistent before using the model")
         if args.report:
             print(f"report: {args.report}")
+        if args.out:
+            print(f"wrote {args.out} (the parameter file with the collision thresholds)")
     return 0

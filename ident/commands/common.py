@@ -92,3 +92,68 @@ def _jsonable(x):
     raise TypeError(f"not JSON serializable: {type(x).__name__}")
 
 
+
+
+def _close(a, b) -> bool:
+    try:
+        return bool(np.allclose(np.asarray(a, dtype=float), np.asarray(b, dtype=float), rtol=1e-12, atol=1e-12))
+    except (TypeError, ValueError):
+        return a == b
+
+
+def _show(v) -> str:
+    if isinstance(v, (list, tuple, np.ndarray)):
+        return ",".join(f"{float(x):g}" for x in np.asarray(v, dtype=float).reshape(-1))
+    if isinstance(v, float):
+        return f"{v:g}"
+    return str(v)
+
+
+def robot_for_params(args: argparse.Namespace, params_path, robot_path=None):
+    """Load the robot and the parameter file `params_path` the way the file says it was made.
+
+    The joint selection, locked joints and gravity come from the file's ``context`` (and its
+    ``joints``); --joints, --lock and --gravity may repeat them but an option that contradicts the
+    file is refused with one line naming both values. Files without a context use the options.
+    Returns (robot, parameter set).
+    """
+    from ..errors import DataError
+    from ..handover.paramfile import load_parameters
+
+    ps = load_parameters(params_path)
+    ctx = ps.context or {}
+    robot_path = robot_path or args.robot
+    if not ctx:
+        args.robot = robot_path
+        robot = robot_from_args(args)
+        return robot, ps.check_robot(robot, where=str(params_path))
+    joints = _split(args.joints)
+    if joints and set(joints) != set(ps.joint_names):
+        raise DataError(f"--joints {','.join(joints)} conflicts with the parameter file's joints {','.join(ps.joint_names)} ({params_path}: joints)")
+    file_locked = dict(ctx.get("locked", {}))
+    for name, val in parse_locks(args.lock).items():
+        if name not in file_locked:
+            raise DataError(f"--lock {name}={val:g} conflicts with the parameter file, where '{name}' is not locked ({params_path}: context.locked)")
+        if not _close(val, file_locked[name]):
+            raise DataError(f"--lock {name}={val:g} conflicts with the parameter file's {name}={file_locked[name]:g} ({params_path}: context.locked)")
+    gravity = ctx.get("gravity")
+    if args.gravity:
+        g = parse_vector(args.gravity, "--gravity", 3)
+        if gravity is not None and not _close(g, gravity):
+            raise DataError(f"--gravity {_show(g)} conflicts with the parameter file's gravity {_show(gravity)} ({params_path}: context.gravity)")
+        gravity = g
+    robot = load_robot(robot_path, joints=list(ps.joint_names), locked=file_locked, gravity=gravity)
+    return robot, ps.check_robot(robot, where=str(params_path))
+
+
+def conditioning_for_params(ps, opts: dict, where) -> dict:
+    """Log options `opts` (from the command line) completed with the conditioning the parameter
+    file's fit used; an option that contradicts the file is refused with one line naming both values."""
+    from ..errors import DataError
+
+    out = dict(opts)
+    for key, val in ((ps.context or {}).get("conditioning") or {}).items():
+        if key in out and not _close(out[key], val):
+            raise DataError(f"--{key.replace('_', '-')} {_show(out[key])} conflicts with the parameter file's {key} {_show(val)} ({where}: context.conditioning)")
+        out[key] = val
+    return out

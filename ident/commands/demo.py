@@ -11,8 +11,8 @@ from pathlib import Path
 from ..arm.loader import load_robot
 from ..data.load import load_dataset
 from ..errors import IdentError
-from ..fileio import atomic_folder
 from ..estimation.estimate import fit
+from ..fileio import atomic_folder
 from ..handover.check import validate_dataset
 from ..handover.export import export_urdf
 from ..handover.paramfile import load_parameters, save_parameters

@@ -8,6 +8,7 @@ import warnings
 
 import numpy as np
 
+from ..arm.parameters import make_context
 from ..errors import IdentError
 from ..estimation.estimate import REGULARIZATION, fit
 from ..estimation.result import METHODS, Bounds
@@ -114,6 +115,7 @@ def run(args) -> int:
         if msg not in known and not args.quiet:
             sys.stderr.write(f"ident fit: warning: {msg}\n")
     ps = res.to_parameter_set(data={"files": [str(f) for f in args.logs], "warnings": list(data.warnings)})
+    ps.context = make_context(robot, {**data.info.get("options", {}), "cutoff": data.info.get("cutoff")})
     save_parameters(args.out, ps)
     if args.json:
         out = ps.to_dict()

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import argparse
 
+from ..data.load import load_dataset
 from ..estimation.payload import identify_payload, save_payload
-from ..handover.paramfile import load_parameters
 from ..progress import Progress
-from .common import add_robot_arguments, print_json, robot_from_args
-from .logs import add_log_arguments, dataset_from_args
+from .common import add_robot_arguments, conditioning_for_params, print_json, robot_for_params
+from .logs import add_log_arguments, options_from_args
 
 EXAMPLE = """\
 examples:
@@ -48,9 +48,9 @@ def add_parser(sub) -> None:
 
 
 def run(args) -> int:
-    robot = robot_from_args(args)
-    ps = load_parameters(args.params, robot)
-    data = dataset_from_args(args, robot)
+    robot, ps = robot_for_params(args, args.params)
+    opts = conditioning_for_params(ps, options_from_args(args), args.params)
+    data = load_dataset(args.logs, robot=robot, profile=args.profile, options=opts)
     show = not (args.quiet or args.json)
     with Progress(data.n_samples, "payload", enabled=show) as bar:
         res = identify_payload(robot, ps, data, body=args.body, frame=args.frame, solver=args.solver,

@@ -7,10 +7,9 @@ import argparse
 import numpy as np
 
 from ..errors import IdentError
-from ..handover.paramfile import load_parameters
 from ..intake import count, number, seed
 from ..motion.simulate import SimulationSettings, read_trajectory, simulate, write_log
-from .common import add_robot_arguments, format_table, print_json, robot_from_args
+from .common import add_robot_arguments, format_table, print_json, robot_for_params
 
 EXAMPLE = """\
 example:
@@ -60,8 +59,7 @@ def _noise(text: str, n: int) -> np.ndarray:
 
 
 def run(args) -> int:
-    robot = robot_from_args(args)
-    truth = load_parameters(args.truth, robot)
+    robot, truth = robot_for_params(args, args.truth)
     t, q, dq, ddq = read_trajectory(args.trajectory, robot)
     settings = SimulationSettings(
         log_rate=None if args.log_rate is None else number(args.log_rate, "--log-rate", "rate"),

@@ -13,7 +13,7 @@ import numpy as np
 
 from ..errors import DataError
 from ..fileio import read_yaml
-from ..intake import shown, MAX_SAMPLES, count, number
+from ..intake import MAX_SAMPLES, count, number, shown
 from . import conditioning as cond
 
 

@@ -14,7 +14,7 @@ from pathlib import Path
 
 from ..errors import DataError
 from ..fileio import read_yaml
-from ..intake import shown, number
+from ..intake import number, shown
 from .dataset import CHANNELS
 from .options import LogOptions
 

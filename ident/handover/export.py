@@ -5,19 +5,15 @@ links change (their byte spans are replaced), so comments, formatting, visuals, 
 and every other element stay byte-for-byte as they were.
 
 Each identified body is written as the link that its joint moves (the URDF child link): origin at
-the centre of mass with ``rpy="0 0 0"`` (the link's axes) and the inertia about the COM, numbers
-with 17 significant digits so the file reproduces the identified model to machine precision.
+the centre of mass with ``rpy="0 0 0"`` (the link's axes) and the inertia about the COM. What each
+link receives (split back of merged bodies, description values where the data see nothing,
+rounding to `digits` significant digits that keeps every link physical) is decided by
+:mod:`ident.handover.inertials`.
 
 With ``friction=True`` each identified joint's ``<dynamics damping=... friction=...>`` element is
 written (or added) from the viscous (fv) and Coulomb (fc) coefficients, the URDF fields simulators
-read. URDF has no field for the armature (rotor inertia): it stays in the parameter file.
-
-Merged bodies: when fixed or locked joints join several links into one identified body (for
-example a gripper bolted to the flange), the parameters identify only their sum. The rule: the
-whole body goes on its root link (the one the joint moves) and the ``<inertial>`` of every other
-link of the body is removed (a comment marks where it went). The exported file then reproduces the
-identified model exactly with the same joints locked at the same positions; it cannot say how the
-mass splits between the merged links, and does not pretend to.
+read. URDF has no field for the armature (rotor inertia): it stays in the parameter file (and goes
+into the MJCF export, :mod:`ident.handover.mjcf`).
 """
 
 from __future__ import annotations
@@ -30,9 +26,11 @@ import numpy as np
 
 from ..arm.model import Robot
 from ..arm.parameters import ParameterSet
-from ..arm.spatial import check_physical, from_vector
+from ..arm.spatial import from_vector
+from ..arm.urdf import urdf_specs
 from ..errors import IdentError, ModelError
 from ..fileio import write_text
+from .inertials import DIGITS, hand_over, rounded_form
 from .paramfile import save_parameters
 
 _LINK_OPEN = re.compile(r"<link\b[^>]*?>", re.S)
@@ -44,17 +42,25 @@ _TYPE = re.compile(r"""\btype\s*=""")
 _DYNAMICS = re.compile(r"<dynamics\b[^>]*?/>|<dynamics\b.*?</dynamics\s*>", re.S)
 
 
-def _num(x: float) -> str:
-    return format(float(x), ".17g")
+def _num(x: float, digits: int = 17) -> str:
+    return format(float(x), f".{int(digits)}g")
 
 
-def inertial_xml(pi: np.ndarray, indent: str, step: str = "  ", note: str = "") -> str:
-    """URDF ``<inertial>`` element text for a body 10-vector `pi` (10,) in the link frame.
+def inertial_xml(pi: np.ndarray, indent: str, step: str = "  ", note: str = "", digits: int = 17) -> str:
+    """URDF ``<inertial>`` element text for a body 10-vector `pi` (10,) in the link frame, numbers
+    with `digits` significant digits.
 
     `indent` is the whitespace before the element, `step` one indentation level. The first line
     carries no indentation (the caller places it).
     """
-    m, c, I = from_vector(pi)
+    if digits >= 17:
+        m, c, I = from_vector(pi)
+    else:
+        m, c, I = rounded_form(pi, digits)
+
+    def num(x):  # the numbers were rounded: print them with the same digits
+        return _num(x, digits)
+
     inner = indent + step
     lines = []
     if note:
@@ -63,10 +69,10 @@ def inertial_xml(pi: np.ndarray, indent: str, step: str = "  ", note: str = "") 
     else:
         lines.append("<inertial>")
     lines += [
-        f'{inner}<origin xyz="{_num(c[0])} {_num(c[1])} {_num(c[2])}" rpy="0 0 0"/>',
-        f'{inner}<mass value="{_num(m)}"/>',
-        f'{inner}<inertia ixx="{_num(I[0, 0])}" ixy="{_num(I[0, 1])}" ixz="{_num(I[0, 2])}" '
-        f'iyy="{_num(I[1, 1])}" iyz="{_num(I[1, 2])}" izz="{_num(I[2, 2])}"/>',
+        f'{inner}<origin xyz="{num(c[0])} {num(c[1])} {num(c[2])}" rpy="0 0 0"/>',
+        f'{inner}<mass value="{num(m)}"/>',
+        f'{inner}<inertia ixx="{num(I[0, 0])}" ixy="{num(I[0, 1])}" ixz="{num(I[0, 2])}" '
+        f'iyy="{num(I[1, 1])}" iyz="{num(I[1, 2])}" izz="{num(I[2, 2])}"/>',
         f"{indent}</inertial>",
     ]
     return "\n".join(lines)
@@ -121,7 +127,7 @@ def _joint_spans(text: str, masked: str) -> dict[str, tuple[int, int, int, int]]
     return spans
 
 
-def _friction_edits(text: str, masked: str, robot: Robot, ps: ParameterSet, where: str) -> list[tuple[int, int, str]]:
+def _friction_edits(text: str, masked: str, robot: Robot, ps: ParameterSet, where: str, digits: int = DIGITS) -> list[tuple[int, int, str]]:
     if "fv" not in ps.joint_params and "fc" not in ps.joint_params:
         raise IdentError("friction export: the parameter set has no viscous (fv) or Coulomb (fc) terms")
     spans = _joint_spans(text, masked)
@@ -133,7 +139,7 @@ def _friction_edits(text: str, masked: str, robot: Robot, ps: ParameterSet, wher
         fc = float(ps.joint_params.get("fc", np.zeros(robot.n))[i])
         if fv < 0 or fc < 0:
             raise IdentError(f"cannot export joint '{joint}': negative friction (fv {fv:g}, fc {fc:g}); use a consistent fit")
-        element = f'<dynamics damping="{_num(fv)}" friction="{_num(fc)}"/>'
+        element = f'<dynamics damping="{_num(fv, digits)}" friction="{_num(fc, digits)}"/>'
         start, open_end, close_start, end = spans[joint]
         found = _DYNAMICS.search(masked[open_end:close_start])
         if found is not None:
@@ -146,57 +152,63 @@ def _friction_edits(text: str, masked: str, robot: Robot, ps: ParameterSet, wher
     return edits
 
 
-def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "URDF", friction: bool = False) -> str:
+def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "URDF", friction: bool = False,
+                     digits: int = DIGITS, notes: list | None = None) -> str:
     """Rewrite the ``<inertial>`` elements of `text` (the URDF `robot` was loaded from) with `ps`.
 
     Raises :class:`IdentError` naming the link when a body is not physically consistent (it has no
     URDF form: mass <= 0 or an inertia about the COM that is not positive definite or violates the
     triangle inequality), and :class:`ModelError` when a link of the model is missing from `text`.
-    `friction` also writes each joint's ``<dynamics damping friction>`` from fv and fc.
+    `friction` also writes each joint's ``<dynamics damping friction>`` from fv and fc. `digits`
+    significant digits (raised per link where rounding would break consistency); `notes`, when a
+    list, receives one line per decision worth telling (split back, folded links, kept links).
     """
+    _, links, joints = urdf_specs(text, where)
+    ho = hand_over(robot, ps, links, joints, digits)
+    if notes is not None:
+        notes += ho.notes
     ps = ps.check_robot(robot, where="parameter set")
-    for i, body in enumerate(robot.body_names):
-        check_physical(ps.inertial[i], f"cannot export link '{body}'")
     spans = _link_spans(text)
     edits = []  # (start, end, replacement)
     masked = _masked(text)
-    for i, group in enumerate(robot.merged):
-        for k, link in enumerate(group):
-            if link not in spans:
-                raise ModelError(f"{where}: link '{link}' of the model is not in the file")
-            start, open_end, close_start, end = spans[link]
-            body = masked[open_end:close_start]
-            found = _INERTIAL.search(body)
-            if k == 0:
-                note = f"identified by ident; includes the merged link(s) {', '.join(group[1:])}" if len(group) > 1 else ""
-                if found is not None:
-                    a, b = open_end + found.start(), open_end + found.end()
-                    indent = _line_indent(text, a)
-                    edits.append((a, b, inertial_xml(ps.inertial[i], indent, note=note)))
-                else:
-                    link_indent = _line_indent(text, start)
-                    indent = link_indent + "  "
-                    xml = indent + inertial_xml(ps.inertial[i], indent, note=note)
-                    if open_end == end:  # self-closing <link .../>: open it
-                        opener = text[start:open_end].rstrip()
-                        opener = opener[:-2].rstrip() + ">"
-                        edits.append((start, end, f"{opener}\n{xml}\n{link_indent}</link>"))
-                    else:
-                        # `</link>` sits after the link's own indentation: add one level before the element
-                        edits.append((close_start, close_start, f"  {xml.lstrip()}\n{link_indent}"))
-            elif found is not None:
+    for link, li in ho.links.items():
+        if link not in spans:
+            raise ModelError(f"{where}: link '{link}' of the model is not in the file")
+        if li.params is None and not li.removed:
+            continue
+        start, open_end, close_start, end = spans[link]
+        found = _INERTIAL.search(masked[open_end:close_start])
+        if li.removed:
+            if found is not None:
                 a, b = open_end + found.start(), open_end + found.end()
-                edits.append((a, b, f"<!-- inertial moved to link '{group[0]}' (merged body) by ident export -->"))
+                edits.append((a, b, f"<!-- inertial moved to link '{li.into}' (merged body) by ident export -->"))
+            continue
+        if found is not None:
+            a, b = open_end + found.start(), open_end + found.end()
+            indent = _line_indent(text, a)
+            edits.append((a, b, inertial_xml(li.params, indent, note=li.note, digits=li.digits)))
+        else:
+            link_indent = _line_indent(text, start)
+            indent = link_indent + "  "
+            xml = indent + inertial_xml(li.params, indent, note=li.note, digits=li.digits)
+            if open_end == end:  # self-closing <link .../>: open it
+                opener = text[start:open_end].rstrip()
+                opener = opener[:-2].rstrip() + ">"
+                edits.append((start, end, f"{opener}\n{xml}\n{link_indent}</link>"))
+            else:
+                # `</link>` sits after the link's own indentation: add one level before the element
+                edits.append((close_start, close_start, f"  {xml.lstrip()}\n{link_indent}"))
     if friction:
-        edits += _friction_edits(text, masked, robot, ps, where)
+        edits += _friction_edits(text, masked, robot, ps, where, digits)
     out = text
     for a, b, rep in sorted(edits, key=lambda e: e[0], reverse=True):
         out = out[:a] + rep + out[b:]
     return out
 
 
-def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path, friction: bool = False) -> None:
-    """Write a copy of `urdf_path` with the identified inertial elements (see :func:`export_urdf_text`), atomically."""
+def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path, friction: bool = False, digits: int = DIGITS) -> list[str]:
+    """Write a copy of `urdf_path` with the identified inertial elements (see :func:`export_urdf_text`),
+    atomically; returns the notes on how merged bodies were split."""
     p = Path(urdf_path)
     if robot.source_kind != "urdf":
         raise IdentError(f"{p}: URDF export needs a URDF robot description, got a {robot.source_kind or 'non-URDF'} file")
@@ -204,7 +216,9 @@ def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path, friction: b
         text = p.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise ModelError(f"{p}: cannot read ({exc})") from None
-    write_text(out_path, export_urdf_text(text, robot, ps, where=str(p), friction=friction))
+    notes: list[str] = []
+    write_text(out_path, export_urdf_text(text, robot, ps, where=str(p), friction=friction, digits=digits, notes=notes))
+    return notes
 
 
 def export_parameters(ps: ParameterSet, out_path, fmt: str) -> None:

@@ -19,9 +19,21 @@ i.e. the URDF child-link frame of the joint that moves it)::
       j1: {fv: .., fc: .., ia: ..}    # (N s/m, N, N, kg for a prismatic joint)
     base_parameters:                  # optional: the identifiable combinations
       - {name: link2.zzR, value: .., std: .., relation: "link2.zzR = link2.zz + ..."}
+    context:                          # optional (files from 'ident fit' and 'ident prior' have it):
+      description: panda.urdf         #   the description file the model belongs to (its name)
+      locked: {finger1: 0.02}         #   joints locked at positions (rad or m) while identifying
+      gravity: [0, 0, -9.81]          #   m/s^2 in the base frame
+      conditioning: {cutoff: 10, ...} #   log settings the fit used (low-pass Hz, derivative, slow velocity, ...)
     method: {name: consistent, ...}   # optional: how the values were obtained
     data: {files: [...], samples: N}  # optional: the data used
     diagnostics: {...}                # optional: fit diagnostics (condition number, residuals, ...)
+    collision:                        # optional: torque-residual collision thresholds ('ident check --out')
+      false_alarm_rate: 0.0001        #   per sample, the rate the thresholds were set for
+      joints: {j1: {threshold: .., heldout_rate: ..}, ...}   # N m (N); rate seen on the held-out log
+
+Commands that take a parameter file (check, export, payload, simulate) use the context: the joint
+selection, locks and gravity (and for check and payload the conditioning) come from the file, and
+an option that contradicts it is refused with one line naming both values.
 
 A link whose mass is not positive (possible only for an unconstrained least-squares realization)
 has no centre of mass; it is stored in first-moment form instead: ``mass``, ``first_moment``
@@ -43,7 +55,8 @@ from ..errors import DataError, IdentError
 from ..fileio import read_yaml, write_text
 from ..intake import number, shown
 
-_TOP_KEYS = ("format", "robot", "joints", "terms", "links", "joint_terms", "base_parameters", "method", "data", "diagnostics")
+_TOP_KEYS = ("format", "robot", "joints", "terms", "links", "joint_terms", "base_parameters", "context", "method", "data",
+             "diagnostics", "collision")
 
 
 _REQUIRED = ("format", "robot", "joints", "terms", "links", "joint_terms")
@@ -66,6 +79,7 @@ def load_parameters(path, robot: Robot | None = None) -> ParameterSet:
     counts, non-numbers, NaN, links or joints that do not match).
     """
     p = Path(path)
+    _refuse_description(p)
     doc = read_yaml(p, "parameter file", DataError)
     ps = parameter_set_from_dict(doc, where=str(p))
     if robot is not None:
@@ -139,11 +153,12 @@ def parameter_set_from_dict(doc, where: str = "parameters") -> ParameterSet:
     if doc.get("base_parameters") is not None:
         base = _base_table(doc["base_parameters"], f"{where}: base_parameters")
     extras = {}
-    for key in ("method", "data", "diagnostics"):
+    for key in ("method", "data", "diagnostics", "collision"):
         val = doc.get(key)
         if val is not None and not isinstance(val, dict):
             raise DataError(f"{where}: '{key}' must be a mapping")
         extras[key] = val or {}
+    extras["context"] = _context(doc.get("context"), f"{where}: context")
     return ParameterSet(
         robot_name=str(doc["robot"]),
         joint_names=list(joints),
@@ -154,6 +169,42 @@ def parameter_set_from_dict(doc, where: str = "parameters") -> ParameterSet:
         base=base,
         **extras,
     )
+
+
+def _refuse_description(p: Path) -> None:
+    """A robot description given where a parameter file belongs: say so, and how to make one."""
+    looks_xml = p.suffix.lower() in (".urdf", ".xml")
+    if not looks_xml and p.is_file():
+        try:
+            with open(p, "rb") as fh:
+                looks_xml = fh.read(256).lstrip().startswith(b"<")
+        except OSError:
+            return
+    if looks_xml:
+        raise DataError(f"{p}: is a robot description (XML), not a parameter file; write one from it with 'ident prior {p} --out PARAMS.yaml'")
+
+
+def _context(ctx, where: str) -> dict:
+    if ctx is None:
+        return {}
+    if not isinstance(ctx, dict):
+        raise DataError(f"{where}: expected a mapping")
+    for k in ctx:
+        if k not in ("description", "locked", "gravity", "conditioning"):
+            raise DataError(f"{where}: unknown key '{k}' (allowed: description, locked, gravity, conditioning)")
+    out = {"description": str(ctx.get("description") or "")}
+    locked = ctx.get("locked") or {}
+    if not isinstance(locked, dict):
+        raise DataError(f"{where}.locked: expected a mapping of joint names to positions")
+    out["locked"] = {str(j): _num(v, f"{where}.locked.{j}") for j, v in locked.items()}
+    if ctx.get("gravity") is not None:
+        out["gravity"] = _vec(ctx["gravity"], 3, f"{where}.gravity").tolist()
+    cond = ctx.get("conditioning")
+    if cond is not None:
+        if not isinstance(cond, dict):
+            raise DataError(f"{where}.conditioning: expected a mapping")
+        out["conditioning"] = dict(cond)
+    return out
 
 
 def _num(x, where: str, quantity: str = "parameter") -> float:

@@ -34,7 +34,7 @@ body{font-family:system-ui,-apple-system,Segoe UI,Helvetica,Arial,sans-serif;max
 h1{font-size:1.6em}h2{font-size:1.25em;border-bottom:1px solid #ccc;padding-bottom:.2em;margin-top:1.8em}
 table{border-collapse:collapse;margin:.6em 0;font-size:.9em}th,td{border:1px solid #ddd;padding:.25em .6em}
 th{background:#f3f3f3;text-align:left}td.n{text-align:right;font-variant-numeric:tabular-nums}
-.bad{color:#b00020;font-weight:600}.ok{color:#1b5e20}.note{color:#555}pre{background:#f7f7f7;padding:.6em;overflow-x:auto}
+.bad{color:#b00020;font-weight:600}.ok{color:#1b5e20}.note{color:#555}pre{background:#f7f7f7;padding:.6em;overflow-x:auto}pre.wrap{white-space:pre-wrap;overflow-wrap:anywhere}
 img{max-width:100%;height:auto;border:1px solid #eee}
 """
 
@@ -103,18 +103,26 @@ def _fig_validation(robot: Robot, val: Validation) -> str:
         ax.plot(t[::stride], val.measured[::stride, j], color="0.55", lw=0.9, label="measured")
         ax.plot(t[::stride], val.predicted[::stride, j], color="C0", lw=0.9, label="predicted")
         resid = np.where(val.used[:, j], val.measured[:, j] - val.predicted[:, j], np.nan)  # gaps: samples left out
-        ax.plot(t[::stride], resid[::stride], color="C3", lw=0.7, label="residual (samples used)")
-        ax.set_ylabel(f"{name}\ntorque ({unit})", fontsize=8)
+        ax.set_ylabel(f"{name}\ntorque ({unit})", fontsize=9)
+        ax.tick_params(labelsize=8)
         ax.grid(alpha=0.3)
+        # the residual is small beside the torque: its own axis on the right, or it looks flat
+        axr = ax.twinx()
+        axr.plot(t[::stride], resid[::stride], color="C3", lw=0.6, label="residual (samples used, right axis)")
+        axr.set_ylabel(f"residual ({unit})", fontsize=9, color="C3")
+        axr.tick_params(labelsize=8, colors="C3")
         if j == 0:
-            ax.legend(loc="upper right", fontsize=7, ncol=3)
+            h1, l1 = ax.get_legend_handles_labels()
+            h2, l2 = axr.get_legend_handles_labels()
+            ax.legend(h1 + h2, l1 + l2, loc="upper right", fontsize=7, ncol=3)
         if j == n - 1:
             ax.set_xlabel("time (s, held-out logs one after another)")
         res = (val.measured - val.predicted)[val.used[:, j], j]
         ax2 = axes[j, 1]
         ax2.hist(res, bins=40, range=tuple(np.percentile(res, [0.5, 99.5])), color="C3", alpha=0.8)
-        ax2.set_xlabel(f"residual ({unit}), central 99 %", fontsize=8)
-        ax2.set_ylabel("samples", fontsize=8)
+        ax2.set_xlabel(f"residual ({unit}), central 99 %", fontsize=9)
+        ax2.set_ylabel("samples", fontsize=9)
+        ax2.tick_params(labelsize=8)
         ax2.set_title(f"RMS {val.rms[j]:.3g} {unit}, R\u00b2 {val.r2[j]:.3f}", fontsize=8)
         ax2.grid(alpha=0.3)
     return _png(fig)
@@ -229,7 +237,7 @@ def _render(robot, ps, validation, validation_data, fit_data, reference, title, 
                  f"{bp.n_base} base parameters are identifiable, {len(bp.regrouped)} parameters regroup into them and "
                  f"{len(bp.zero)} never affect the torque. The regroupings:</p>")
     rel = [r for r in bp.relations() if "=" in r and r.split("=")[0].strip() != r.split("=")[1].strip()]
-    parts.append("<pre>" + _e("\n".join(rel) if rel else "(none)") + "</pre>")
+    parts.append("<pre class=\"wrap\">" + _e("\n".join(rel) if rel else "(none)") + "</pre>")
     bar.update(2, "base")
 
     # -- excitation quality ------------------------------------------------------------------------
@@ -247,7 +255,11 @@ def _render(robot, ps, validation, validation_data, fit_data, reference, title, 
     if fit_data is not None:
         parts.append(_fig_coverage(robot, fit_data.q, fit_data.dq))
     elif validation_data is not None:
-        parts.append("<p>Range of the held-out motion:</p>" + _fig_coverage(robot, validation_data.q, validation_data.dq))
+        # the plot must show the data its condition number is for: the held-out motion gets its own
+        hcond = _condition(robot, terms, validation_data.q, validation_data.dq, validation_data.ddq)
+        parts.append("<p>The fit data are not part of this report; the figure below is the held-out motion, whose "
+                     f"condition number is <b>{float(hcond):.4g}</b>.</p>"
+                     + _fig_coverage(robot, validation_data.q, validation_data.dq))
     bar.update(3, "excitation")
 
     # -- identified values --------------------------------------------------------------------------
@@ -318,8 +330,13 @@ def _render(robot, ps, validation, validation_data, fit_data, reference, title, 
         parts.append("<p class=\"bad\">No held-out data were given: the model has not been checked on motion it was not fitted to.</p>")
     else:
         rows = [[j, int(validation.samples[i]), f"{validation.rms[i]:.4g}", f"{validation.nrms_pct[i]:.2f}", f"{validation.r2[i]:.4f}",
-                 f"{validation.max_error[i]:.4g}"] for i, j in enumerate(validation.joint_names)]
-        parts.append(_table(["joint", "samples", "RMS error", "RMS / torque range %", "R\u00b2", "largest error"], rows, [False] + [True] * 5))
+                 f"{validation.max_error[i]:.4g}", f"{validation.max_error_time[i]:.3f}"] for i, j in enumerate(validation.joint_names)]
+        parts.append(_table(["joint", "samples", "RMS error", "RMS / torque range %", "R\u00b2", "largest error", "at t (s)"], rows,
+                            [False] + [True] * 6))
+        if validation.classes:
+            parts.append("<p>Against the noise:</p><pre>" + _e(validation.noise_table()) + "</pre>")
+        if validation.collision:
+            parts.append("<p>Collision detection:</p><pre>" + _e(validation.collision_table()) + "</pre>")
         for note in validation.notes:
             parts.append(f"<p class=\"note\">{_e(note)}</p>")
         parts.append("<p>Measured and predicted torque per joint, the residual, and its histogram:</p>")

@@ -9,11 +9,11 @@ from pathlib import Path
 import numpy as np
 
 from ..arm.model import Robot, parse_terms
-from ..intake import check_samples, count, number, shown
-from ..intake import seed as intake_seed
 from ..errors import IdentError
 from ..fileio import read_yaml
-from .config_values import float_list, fraction_number, known_keys, nonneg_number, per_joint_values, period_ticks, positive_number, whole_number
+from ..intake import check_samples, count, number, shown
+from ..intake import seed as intake_seed
+from .config_values import float_list, fraction_number, known_keys, nonneg_number, per_joint_values, period_ticks, positive_number
 from .keepout import REGION_KINDS, KeepoutPoint, Region
 
 CRITERIA = ("cond", "logdet")

@@ -3,12 +3,11 @@
 
 from __future__ import annotations
 
-
 import numpy as np
 
 from ..arm.model import Robot
-from ..intake import number, shown
 from ..errors import IdentError
+from ..intake import number, shown
 
 
 def period_ticks(period: float, rate: float, key: str) -> int:
