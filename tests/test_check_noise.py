@@ -90,10 +90,9 @@ def test_collision_thresholds_keep_their_false_alarm_rate_on_a_second_log(setup,
     assert np.all(rates >= alpha / 3) and np.all(rates <= 3 * alpha), rates
 
 
-@pytest.mark.xfail(strict=True, reason="closed-loop log of our simulator: the zero-order-hold torque leads the sampled motion by "
-                   "half a control tick and the low-passed Coulomb step differs from sign(q') past the reversal margin; with "
-                   "the true parameters moving RMS/floor is 3-5 at the default cutoff, 1.3-2.3 at 10 Hz (1.1-1.4 with the "
-                   "half-tick removed). Expected to pass once the Coulomb columns follow the filtered torque.")
+@pytest.mark.xfail(strict=True, reason="closed-loop log of our simulator: with the dry-friction columns filtered like the "
+                   "torque the true parameters sit at moving RMS/floor 0.99-1.13 (3-5 before); wrist_roll still 1.13, "
+                   "likely the half control tick the zero-order-hold torque leads the sampled motion")
 def test_true_parameters_on_the_closed_loop_demo_log_sit_on_the_floor(capsys):
     demo = DEMO_URDF.parent
     assert main(["check", str(DEMO_URDF), str(demo / "sprout6_truth.yaml"), str(demo / "sprout6_heldout.csv"),

@@ -71,10 +71,13 @@ def noise_floor(data, raw=None) -> tuple[np.ndarray | None, str]:
     gain = filter_noise_gain(fs, cutoff, order)
     filt = f"low-pass noise-power gain {gain:.4g} (Butterworth order {order}, {cutoff:g} Hz, both ways, from its frequency response)" if cutoff else "no low-pass"
     if data.noise_var is not None:
+        averaged = bool(opts.get("average"))
         periods = float(info.get("periods_averaged") or 0)
-        per_seg = periods / max(len(segs), 1) if periods else 1.0
+        per_seg = periods / max(len(segs), 1) if (periods and averaged) else 1.0
         floor = np.sqrt(np.asarray(data.noise_var, float) * gain / per_seg)
-        return floor, (f"per-sample noise from period averaging, divided by the {per_seg:g} periods averaged per segment; {filt}")
+        how = (f"divided by the {per_seg:g} periods averaged per segment" if averaged
+               else f"the samples not averaged ({periods:g} periods after the first give the spread)")
+        return floor, (f"per-sample noise from period averaging (spread between periods), {how}; {filt}")
     if raw is not None and raw.segments:
         num = np.zeros(raw.n)
         den = 0
