@@ -417,7 +417,7 @@ def test_documented_example_config_reads_as_its_comments_say():
     np.testing.assert_allclose(cfg.torque, 0.7 * model.effortLimit)  # torque_scale: 0.7
     np.testing.assert_allclose(cfg.lower, model.lowerPositionLimit)
     np.testing.assert_allclose(cfg.acceleration, [3.0, 3.0, 3.0, 5.0, 5.0, 5.0])
-    assert cfg.terms == ("fv", "fc") and cfg.criterion == "cond" and cfg.offset is None  # offset: free
+    assert cfg.terms == ("fv", "fc", "ia") and cfg.criterion == "cond" and cfg.offset is None  # offset: free
     assert cfg.period * cfg.rate == pytest.approx(round(cfg.period * cfg.rate))
     regions = {r.name: r for r in cfg.regions}
     assert [r.kind for r in cfg.regions] == ["plane", "cylinder", "box"]
