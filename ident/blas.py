@@ -28,7 +28,7 @@ def _openblas_handles() -> list:
         except OSError:
             continue
         for stem in _BLAS_SYMBOLS:
-            base, suffix = (stem[:-4], "64_") if stem.endswith("64_") else (stem, "")
+            base, suffix = (stem[:-3], "64_") if stem.endswith("64_") else (stem, "")
             get = getattr(lib, f"{base}_get_num_threads{suffix}", None)
             put = getattr(lib, f"{base}_set_num_threads{suffix}", None)
             if get is not None and put is not None:

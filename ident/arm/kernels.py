@@ -140,8 +140,69 @@ def _regressor_sample(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, terms, 
     Every entry of Y is written exactly once and row by row (blocks of bodies outside joint j's
     subtree get zeros), so the caller need not clear the buffer and the stores stream.
     """
+    _regressor_row(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, terms, Y, s, R, p, w, dw, a, S, BC)
+
+
+@njit(**_INLINE)
+def _regressor_row(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, terms, Y, r, R, p, w, dw, a, S, BC):
+    """Regressor of sample s of q, dq, ddq into row r of Y (Y[r] is (n, p)); see :func:`_regressor_sample`."""
     n = q.shape[1]
     nt = terms.shape[0]
+    _motion_blocks(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, R, p, w, dw, a, S, BC)
+    base = 10 * n
+    for j in range(n):
+        for k in range(n):
+            col = 10 * k
+            if k < j or not anc[k, j]:
+                for c in range(10):
+                    Y[r, j, col + c] = 0.0
+                continue
+            e0, e1, e2, e3, e4, e5, e6, e7, e8, e9 = _body_entries(a, S, BC, j, k)
+            Y[r, j, col] = e0
+            Y[r, j, col + 1] = e1
+            Y[r, j, col + 2] = e2
+            Y[r, j, col + 3] = e3
+            Y[r, j, col + 4] = e4
+            Y[r, j, col + 5] = e5
+            Y[r, j, col + 6] = e6
+            Y[r, j, col + 7] = e7
+            Y[r, j, col + 8] = e8
+            Y[r, j, col + 9] = e9
+        if nt > 0:
+            for c in range(base, base + n * nt):
+                Y[r, j, c] = 0.0
+            for t in range(nt):
+                code = terms[t]
+                v = _term_value(code, dq[s, j], ddq[s, j])
+                Y[r, j, base + nt * j + t] = v
+
+
+@njit(**_INLINE)
+def _body_entries(a, S, BC, j, k):
+    """Joint j's 10 regressor entries for body k's parameters: s_jk . (6x10 wrench block of body k)."""
+    ak0, ak1, ak2 = a[k, 0], a[k, 1], a[k, 2]
+    sa0, sa1, sa2 = S[k, j, 0], S[k, j, 1], S[k, j, 2]
+    sl0, sl1, sl2 = S[k, j, 3], S[k, j, 4], S[k, j, 5]
+    return (
+        sl0 * ak0 + sl1 * ak1 + sl2 * ak2,
+        # moment h x a seen by sa: h . (a x sa)
+        sl0 * BC[k, 0] + sl1 * BC[k, 3] + sl2 * BC[k, 6] + ak1 * sa2 - ak2 * sa1,
+        sl0 * BC[k, 1] + sl1 * BC[k, 4] + sl2 * BC[k, 7] + ak2 * sa0 - ak0 * sa2,
+        sl0 * BC[k, 2] + sl1 * BC[k, 5] + sl2 * BC[k, 8] + ak0 * sa1 - ak1 * sa0,
+        sa0 * BC[k, 9] + sa1 * BC[k, 15] + sa2 * BC[k, 21],
+        sa0 * BC[k, 10] + sa1 * BC[k, 16] + sa2 * BC[k, 22],
+        sa0 * BC[k, 11] + sa1 * BC[k, 17] + sa2 * BC[k, 23],
+        sa0 * BC[k, 12] + sa1 * BC[k, 18] + sa2 * BC[k, 24],
+        sa0 * BC[k, 13] + sa1 * BC[k, 19] + sa2 * BC[k, 25],
+        sa0 * BC[k, 14] + sa1 * BC[k, 20] + sa2 * BC[k, 26],
+    )
+
+
+@njit(**_INLINE)
+def _motion_blocks(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, R, p, w, dw, a, S, BC):
+    """Per-sample pieces of the regressor: forward recursion (R, p, w, dw, a), every ancestor's
+    joint axis in each body frame ``S[k, j]`` (6,), and the force/moment maps ``BC[k]`` (27,)."""
+    n = q.shape[1]
     _forward(q, dq, ddq, s, parent, jtype, Rf, pf, ax, a0, R, p, w, dw, a)
     for k in range(n):
         # joint axes of every ancestor, carried into frame k: s_k = X_k s_parent
@@ -196,31 +257,6 @@ def _regressor_sample(q, dq, ddq, s, parent, jtype, Rf, pf, ax, anc, a0, terms, 
         BC[k, 24] = w0 * w1
         BC[k, 25] = d1 + w0 * w2
         BC[k, 26] = d2
-    base = 10 * n
-    for j in range(n):
-        for k in range(n):
-            col = 10 * k
-            if k < j or not anc[k, j]:
-                for c in range(10):
-                    Y[s, j, col + c] = 0.0
-                continue
-            ak0, ak1, ak2 = a[k, 0], a[k, 1], a[k, 2]
-            sa0, sa1, sa2 = S[k, j, 0], S[k, j, 1], S[k, j, 2]
-            sl0, sl1, sl2 = S[k, j, 3], S[k, j, 4], S[k, j, 5]
-            Y[s, j, col] = sl0 * ak0 + sl1 * ak1 + sl2 * ak2
-            # moment h x a seen by sa: h . (a x sa)
-            Y[s, j, col + 1] = sl0 * BC[k, 0] + sl1 * BC[k, 3] + sl2 * BC[k, 6] + ak1 * sa2 - ak2 * sa1
-            Y[s, j, col + 2] = sl0 * BC[k, 1] + sl1 * BC[k, 4] + sl2 * BC[k, 7] + ak2 * sa0 - ak0 * sa2
-            Y[s, j, col + 3] = sl0 * BC[k, 2] + sl1 * BC[k, 5] + sl2 * BC[k, 8] + ak0 * sa1 - ak1 * sa0
-            for c in range(6):
-                Y[s, j, col + 4 + c] = sa0 * BC[k, 9 + c] + sa1 * BC[k, 15 + c] + sa2 * BC[k, 21 + c]
-        if nt > 0:
-            for c in range(base, base + n * nt):
-                Y[s, j, c] = 0.0
-            for t in range(nt):
-                code = terms[t]
-                v = _term_value(code, dq[s, j], ddq[s, j])
-                Y[s, j, base + nt * j + t] = v
 
 
 @njit(**_OPTS)

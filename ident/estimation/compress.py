@@ -1,17 +1,43 @@
 """Streaming compression of the identification problem: per-joint triangular factors.
 
 For joint j the rows of the base regressor and the measured torque, ``[Y_b,j | tau_j]`` (N, b+1),
-are reduced chunk by chunk to the upper triangle ``T_j`` of their QR factorization: the chunk is
-stacked under the current triangle and re-factored (Householder QR, LAPACK ``dgeqrf``), so the
-memory never grows with N and the result is exactly as stable as a QR of the whole stacked
-matrix. Since ``||[Y | tau] [beta; -1]||^2 = ||T [beta; -1]||^2`` for every beta, everything
-downstream (OLS, WLS, the consistent SDP, residuals) works on the triangles alone.
+are reduced chunk by chunk to the upper triangle ``T_j`` of their QR factorization, so the memory
+never grows with N. Since ``||[Y | tau] [beta; -1]||^2 = ||T [beta; -1]||^2`` for every beta,
+everything downstream (OLS, WLS, the consistent SDP, residuals) works on the triangles alone.
 
 Why one triangle per joint: weighted least squares scales each joint's rows by ``1/sigma_j``,
 and ``sigma_j`` is only known after a first fit. Keeping the joints apart lets both fits come
 from one pass over the data (stack ``T_j / sigma_j`` afterwards). It is also faster: joint j's
 rows are zero outside the columns of the bodies it carries and its own terms, so its triangle
-only spans those ``c_j`` columns (the QR cost falls with ``c_j^2``).
+only spans those ``c_j`` columns.
+
+**Fused pass.** One compiled kernel (:func:`ident.arm.pack.pack_chunk`) evaluates the regressor
+sample by sample and writes only the rows the triangles need, packed per joint; the full
+(N, n, p) regressor never exists. A chunk of packed rows is then folded in one of two ways:
+
+* *Householder* (LAPACK ``dgeqrf`` of the chunk stacked under the triangle): backward stable
+  whatever the data; about ``2 c_j^2`` flops a row, mostly in level-2 BLAS.
+* *Centred Gram*: once the data seen so far determine the base parameters well (a centre
+  ``beta_c`` from the triangles, scaled condition number and statistical spread small), the rows
+  are formed as ``[Y_b | tau - Y_b beta_c]`` and only their Gram matrix is accumulated (BLAS
+  ``dsyrk``, ``c_j^2`` flops a row at level-3 speed). This is one step of iterative refinement
+  around ``beta_c`` (the corrected semi-normal equations of Bjorck): forming ``A^T A`` in floating
+  point perturbs it by about ``eps |A|^T |A|``, which moves the solution by
+  ``eps kappa^2 ||beta - beta_c||`` instead of ``eps kappa^2 ||beta||``, and the residual column
+  is residual-sized, so the residual sum of squares is not the difference of two large numbers.
+  At the end of the log the Gram matrix is factored (scaled symmetric eigendecomposition, then
+  QR, so rank-deficient per-joint blocks are fine), shifted back by the unit triangular column
+  operation that undoes the centring, and merged into the triangle by QR.
+
+After a log folded by the Gram route the estimate is checked a posteriori: the bound
+``eps (c+1) kappa_s^2 ||D (beta - beta_c)|| / ||D beta||`` on the extra relative error of the base
+parameters (``kappa_s`` the scaled condition number, unweighted and with the WLS weights; ``D``
+the column norms) and ``eps (c+1) ||r_c,j||^2 / rss_j`` on each joint's residual sum of squares
+must stay below :data:`GRAM_TOL`; otherwise that part of the log is folded again by Householder
+(a second pass). So the result is never less accurate than the Householder route by more than
+that tolerance, and ill-conditioned data get the Householder route. With time blocks kept (block
+jackknife) each block is folded into triangles of its own this way, the centre and the checks
+using every block folded so far, and then merged into the totals.
 """
 
 from __future__ import annotations
@@ -24,14 +50,22 @@ from scipy.linalg import lapack
 
 from ..arm.base import BaseParameters, base_parameters
 from ..arm.dynamics import term_columns
-from ..arm.model import DRY_FRICTION_TERMS, Robot, parse_terms
-from ..arm.regressor import iter_regressor, set_term_columns
+from ..arm.model import DRY_FRICTION_TERMS, Robot, kernel_arrays, parse_terms
+from ..arm.pack import pack_chunk
 from ..blas import single_thread_blas  # noqa: F401  (re-exported for the estimators)
 from ..errors import DataError, IdentError, NumericalError
 from .blocks import MAX_BLOCKS, BlockStore, block_length, block_ranges, merge_triangles
 
-#: Samples per regressor chunk during compression (a 7-joint, 91-column chunk is ~42 MB).
-CHUNK = 8192
+#: Samples per chunk during compression (packed rows of a 7-joint arm: about 1.7 kB a sample).
+CHUNK = 2048
+#: Folding routes: "auto" (centred Gram where it is accurate, Householder otherwise) or
+#: "householder" (always).
+FOLDS = ("auto", "householder")
+#: Largest a-posteriori bound on the relative error the Gram route may add (see the module notes).
+GRAM_TOL = 1e-12
+#: The Gram route needs at most this scaled condition number of the data seen so far.
+GRAM_KAPPA = 1e5
+_EPS = float(np.finfo(float).eps)
 
 
 def joint_columns(robot: Robot, bp: BaseParameters) -> list[np.ndarray]:
@@ -93,12 +127,14 @@ class Compressor:
     robot : the model.
     terms : joint-term codes carried by the regressor.
     base : base parameters to use (default: :func:`ident.arm.base.base_parameters` of robot, terms).
-    chunk : samples per regressor chunk.
+    chunk : samples per chunk of the fused pass.
     block : samples per time block kept for the block jackknife (default: each log added is cut
         into :data:`ident.estimation.blocks.MIN_BLOCKS` blocks; :func:`compress` applies the block
         rule of :mod:`ident.estimation.blocks`).
     keep_blocks : keep the per-block triangles (False: totals only; no block jackknife).
     max_blocks : cap on the number of blocks kept (adjacent blocks are merged beyond it).
+    fold : "auto" (default: the centred Gram route where its error bound allows, see the module
+        notes) or "householder" (QR of every chunk).
 
     Attributes
     ----------
@@ -107,10 +143,12 @@ class Compressor:
     samples : total samples added; sources : labels of the logs added, in order.
     blocks : :class:`ident.estimation.blocks.BlockStore` of per-block triangles (None without
         `keep_blocks`); the totals are the merge of the blocks.
+    folded : samples folded by each route: ``{"householder", "gram", "refolded"}`` (the last are
+        samples of a Gram fold that failed its accuracy check and were folded again by QR).
     """
 
     def __init__(self, robot: Robot, terms=(), base: BaseParameters | None = None, chunk: int = CHUNK,
-                 block: int | None = None, keep_blocks: bool = True, max_blocks: int = MAX_BLOCKS):
+                 block: int | None = None, keep_blocks: bool = True, max_blocks: int = MAX_BLOCKS, fold: str = "auto"):
         self.robot = robot
         self.terms = parse_terms(terms)
         self.base = base if base is not None else base_parameters(robot, self.terms)
@@ -118,7 +156,11 @@ class Compressor:
             raise IdentError(f"base parameters were computed for terms {list(self.base.terms)}, not {list(self.terms)}")
         if chunk < 1:
             raise IdentError(f"chunk: must be a positive number of samples, got {chunk}")
+        if fold not in FOLDS:
+            raise IdentError(f"fold: expected one of {', '.join(FOLDS)}, got {fold!r}")
         self.chunk = int(chunk)
+        self.fold = fold
+        self.folded = {"householder": 0, "gram": 0, "refolded": 0}
         self.columns = joint_columns(robot, self.base)
         self.triangles = [np.zeros((c.size + 1, c.size + 1)) for c in self.columns]
         self.samples = 0
@@ -151,7 +193,8 @@ class Compressor:
             at that sample only, e.g. where the velocity is too small for sign(q') to be trusted).
         term_signals : optional (N, n, k) joint-term columns, in the order of :attr:`terms`, that
             replace the ones the regressor computes from q', q'' (e.g. dry-friction columns
-            filtered like the torque, :func:`ident.arm.dynamics.term_columns`).
+            filtered like the torque, :func:`ident.arm.dynamics.term_columns`). Default: that
+            function's columns from q' and q''. The rigid-body columns always come from the kernel.
         block : samples per time block of this log (default: the compressor's `block`, else a
             twentieth of the log). dt : sample step (s), only to report block durations.
         """
@@ -164,13 +207,10 @@ class Compressor:
             keep = np.asarray(keep, dtype=bool)
             if keep.shape != q.shape:
                 raise DataError(f"{where}: sample mask has shape {keep.shape}, expected {q.shape}")
-            if keep.all():
-                keep = None
-        k = len(self.terms)
+            keep = None if keep.all() else np.ascontiguousarray(keep)
         if term_signals is not None:
-            term_signals = np.asarray(term_signals, dtype=float)
-            if term_signals.shape != q.shape + (k,) or not np.all(np.isfinite(term_signals)):
-                raise DataError(f"{where}: joint-term signals must be finite with shape {q.shape + (k,)}, got {term_signals.shape}")
+            term_signals = self._check_signals(term_signals, q.shape, where)
+        self._rows_now = self.rows.copy()  # equations folded so far, this log's included
         with single_thread_blas():
             ts = term_signals
             if self.blocks is None:
@@ -189,28 +229,233 @@ class Compressor:
         self.samples += q.shape[0]
         self.rows += q.shape[0] if keep is None else keep.sum(axis=0)
         self.sources.append(source)
-        t2 = tau * tau if keep is None else np.where(keep, tau * tau, 0.0)
-        self.sum_tau2 += t2.sum(axis=0)
+        # no (N, n) temporaries: the fit's memory must not grow with the log
+        self.sum_tau2 += np.einsum("ij,ij->j", tau, tau) if keep is None else np.einsum("ij,ij,ij->j", tau, tau, keep)
         return self
 
-    def _fold_range(self, tri: list[np.ndarray], q, dq, ddq, tau, keep, progress, offset: int, term_signals=None) -> None:
-        """Fold the samples of one stretch into the per-joint triangles `tri` (in place)."""
-        for sl, Y in iter_regressor(self.robot, q, dq, ddq, self.terms, self.chunk):
-            if term_signals is not None:
-                set_term_columns(Y, term_signals[sl])
-            self._fold(tri, Y, tau[sl], None if keep is None else keep[sl])
-            if progress is not None:
-                progress(offset + sl.stop)
+    def _check_signals(self, sig, shape, where: str) -> np.ndarray:
+        k = len(self.terms)
+        try:
+            sig = np.asarray(sig, dtype=float)
+        except (TypeError, ValueError):
+            raise DataError(f"{where}: term_signals: expected numbers") from None
+        if sig.shape != shape + (k,):
+            raise DataError(f"{where}: term_signals has shape {sig.shape}, expected {shape + (k,)} (samples, joints, terms {','.join(self.terms) or 'none'})")
+        if not np.all(np.isfinite(sig)):
+            s, j, t = np.argwhere(~np.isfinite(sig))[0]
+            raise DataError(f"{where}: term_signals: non-finite value at sample {s}, joint {self.robot.joint_names[j]}, term {self.terms[t]}")
+        return np.ascontiguousarray(sig)
 
-    def _fold(self, tri: list[np.ndarray], Y: np.ndarray, tau: np.ndarray, keep=None) -> None:
-        indep = self.base.independent
-        for j, cols in enumerate(self.columns):
-            if keep is None:
-                tri[j] = fold_rows(tri[j], Y[:, j, indep[cols]], tau[:, j])
+    # -- the fused pass ------------------------------------------------------------------------
+    def _layout(self):
+        """Kernel arrays: where each packed column comes from, columns per joint, packing buffer."""
+        if getattr(self, "_packing", None) is None:
+            n, nt = self.robot.n, len(self.terms)
+            ncol = np.array([c.size for c in self.columns], dtype=np.int64)
+            width = max(int(ncol.max()), 1)
+            indep = self.base.independent
+            kept = np.zeros((n, 10), dtype=np.int64)  # 1 where a body column is in the base set
+            for f in indep[indep < 10 * n]:
+                kept[f // 10, f % 10] = 1
+            tsrc = np.zeros((n, width), dtype=np.int64)
+            nrigid = np.zeros(n, dtype=np.int64)
+            for j, cols in enumerate(self.columns):
+                full = indep[cols]
+                nrigid[j] = np.count_nonzero(full < 10 * n)
+                # the kernel writes body columns in natural order, then the joint's terms
+                expect = np.array([f for k in range(n) if self.robot.ancestors[k, j] for f in 10 * k + np.flatnonzero(kept[k])], dtype=np.int64)
+                if not np.array_equal(full[: nrigid[j]], expect):  # pragma: no cover - the base set is in natural order
+                    raise IdentError("base columns are not in natural order (body by body, then joint terms)")
+                tsrc[j, nrigid[j] : cols.size] = (full[nrigid[j] :] - 10 * n) % max(nt, 1)
+            kargs = (*kernel_arrays(self.robot), np.ascontiguousarray(self.robot.ancestors), np.ascontiguousarray(-self.robot.gravity, dtype=float))
+            buf = np.empty(self.chunk * int((ncol + 1).sum()))
+            self._packing = (kept, nrigid, tsrc, ncol, kargs, buf)
+        return self._packing
+
+    def _pack(self, q, dq, ddq, tau, keep, sig, start: int, stop: int, center) -> list[np.ndarray]:
+        """Packed rows of samples start..stop-1: per joint a C-ordered (m_j, c_j + 1) block."""
+        kept, nrigid, tsrc, ncol, kargs, buf = self._layout()
+        n, m = self.robot.n, stop - start
+        if buf.size < m * int((ncol + 1).sum()):  # the kernel writes without bounds checks
+            buf = np.empty(m * int((ncol + 1).sum()))
+            self._packing = (kept, nrigid, tsrc, ncol, kargs, buf)
+        if keep is None:
+            if getattr(self, "_all_kept", None) is None or self._all_kept.shape[0] < m:
+                self._all_kept = np.ones((self.chunk, n), dtype=bool)
+            kc = self._all_kept[:m]
+        else:
+            kc = keep[start:stop]
+        sc = term_columns(self.terms, dq[start:stop], ddq[start:stop]) if sig is None else sig[start:stop]
+        cm = self._center_matrix(center)
+        counts, offs = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
+        pack_chunk(q[start:stop], dq[start:stop], ddq[start:stop], tau[start:stop], sc, kc, cm, center is not None,
+                           *kargs, kept, nrigid, tsrc, ncol, buf, counts, offs)
+        return [buf[offs[j] : offs[j] + counts[j] * (ncol[j] + 1)].reshape(counts[j], ncol[j] + 1) for j in range(n)]
+
+    def _center_matrix(self, center) -> np.ndarray:
+        """The centre per joint in regressor-column positions (n, 10 n + k), zero outside the base set."""
+        if getattr(self, "_cm_for", False) is not center:
+            _, nrigid, tsrc, _, _, _ = self._layout()
+            n = self.robot.n
+            nb = 10 * n
+            cm = np.zeros((n, nb + len(self.terms)))
+            if center is not None:
+                for j, cols in enumerate(self.columns):
+                    full = self.base.independent[cols]
+                    rigid = full < nb
+                    cm[j, full[rigid]] = center[cols[rigid]]
+                    cm[j, nb + tsrc[j, nrigid[j] : cols.size]] = center[cols[~rigid]]
+            self._cm_for, self._cm = center, cm
+        return self._cm
+
+    def _fold_range(self, tri: list[np.ndarray], q, dq, ddq, tau, keep, progress, offset: int, term_signals=None) -> None:
+        """Fold the samples of one stretch into the per-joint triangles `tri` (in place): the fused
+        pass, chunk by chunk, by Householder QR or the centred Gram route (module notes)."""
+        N = q.shape[0]
+        sig = term_signals
+        rows = self._rows_now
+        center = self._center(rows, tri) if self.fold == "auto" else None
+        gram_from = 0
+        grams = partial = None
+        qr_chunks, next_check, group = 0, 1, 0
+        for start in range(0, N, self.chunk):
+            stop = min(N, start + self.chunk)
+            blocks = self._pack(q, dq, ddq, tau, keep, sig, start, stop, center)
+            rows += [A.shape[0] for A in blocks]
+            if center is None:
+                self._fold_householder(tri, blocks)
+                self.folded["householder"] += stop - start
+                qr_chunks += 1
+                if self.fold == "auto" and stop < N and qr_chunks >= next_check:
+                    # checks at 1, 2, 3, 4, 6, 8, 12, ... chunks: cheap against the QR folds
+                    next_check = max(qr_chunks + 1, int(1.5 * qr_chunks))
+                    center = self._center(rows, tri)
+                    gram_from = stop
             else:
-                rows = np.flatnonzero(keep[:, j])
-                if rows.size:
-                    tri[j] = fold_rows(tri[j], Y[rows, j][:, indep[cols]], tau[rows, j])
+                if grams is None:
+                    grams = [np.zeros((c.size + 1, c.size + 1)) for c in self.columns]
+                    partial = [np.zeros_like(G) for G in grams]
+                for j, A in enumerate(blocks):
+                    if A.shape[0]:
+                        partial[j] += A.T @ A  # numpy sends A^T A to BLAS syrk
+                group += 1
+                if group == 16:  # two-level sums: rounding grows with 16 + chunks/16 terms, not chunks
+                    for j in range(len(grams)):
+                        grams[j] += partial[j]
+                        partial[j][:] = 0.0
+                    group = 0
+                self.folded["gram"] += stop - start
+            if progress is not None:
+                progress(offset + stop)
+        if grams is None:
+            return
+        for j in range(len(grams)):
+            grams[j] += partial[j]
+        saved = [T.copy() for T in tri]
+        self._merge_grams(tri, grams, center)
+        if not self._gram_accurate(tri, grams, center, rows):
+            tri[:] = saved
+            self.folded["gram"] -= N - gram_from
+            self.folded["refolded"] += N - gram_from
+            for start in range(gram_from, N, self.chunk):
+                self._fold_householder(tri, self._pack(q, dq, ddq, tau, keep, sig, start, min(N, start + self.chunk), None))
+
+    def _fold_householder(self, tri, blocks) -> None:
+        for j, A in enumerate(blocks):
+            if A.shape[0]:
+                tri[j] = fold_rows(tri[j], A[:, :-1], A[:, -1])
+
+    def _merge_grams(self, tri, grams, center) -> None:
+        """Factor each joint's centred Gram matrix, undo the centring, merge into its triangle."""
+        for j, cols in enumerate(self.columns):
+            G = grams[j]
+            if not np.any(G):
+                continue
+            d = np.sqrt(np.diag(G))
+            d[d == 0] = 1.0
+            # Cholesky of the column-scaled matrix keeps the factor's error relative to each
+            # column's own size; pivoting with a rank stop takes the rank-deficient blocks single
+            # joints often have (joint 1 of a vertical arm does not feel gravity).
+            U, piv, rank, info = lapack.dpstrf(G / np.outer(d, d), tol=-1.0, lower=0)
+            if info < 0:  # pragma: no cover - LAPACK argument error
+                raise NumericalError(f"factoring the Gram matrix failed (LAPACK info {info})")
+            F = np.zeros_like(U)
+            F[:, piv - 1] = np.triu(U)
+            F[rank:] = 0.0
+            T = scipy.linalg.qr(F, mode="r", check_finite=False)[0] * d
+            # [A | tau] = [A | tau - A beta_c] [[I, beta_c], [0, 1]]: a unit triangular column operation.
+            T[:, -1] += T[:, :-1] @ center[cols]
+            tri[j] = merge_triangles(tri[j], T)
+
+    def _sets(self, tri) -> list[list[np.ndarray]]:
+        """The triangle sets that together stand for the data folded so far."""
+        return [tri] if tri is self.triangles else [self.triangles, tri]
+
+    def _center(self, rows: np.ndarray, tri):
+        """Centre for the Gram route: the least-squares estimate from the data folded so far, or
+        None while that estimate is too uncertain or the problem too ill-conditioned for the route's
+        error bound (module notes) to be expected below :data:`GRAM_TOL`. rows: (n,) equations so far."""
+        dof = int(rows.sum()) - self.n_base
+        if dof <= 0:
+            return None
+        ls = self._scaled_ls(None, tri)
+        if ls is None:
+            return None
+        beta, kappa, D, R, rho = ls
+        # expected |beta_final - beta_c|: the statistical spread of beta_c
+        Rinv = scipy.linalg.solve_triangular(R, np.eye(R.shape[0]), check_finite=False)
+        spread = rho / np.sqrt(dof) * np.sqrt((Rinv * Rinv).sum(axis=1))
+        est = _EPS * self._growth() * kappa**2 * np.linalg.norm(D * spread) / max(np.linalg.norm(D * beta), 1e-300)
+        return beta if est <= 0.25 * GRAM_TOL else None
+
+    def _growth(self) -> float:
+        """Growth factor of the Gram's rounding error in the bounds: the widest row."""
+        return float(max(c.size for c in self.columns) + 1)
+
+    def _scaled_ls(self, weights, tri):
+        """(beta, scaled condition number, column norms D, R, rho) of the stacked problem so far,
+        or None when it does not determine every base parameter well (above :data:`GRAM_KAPPA`)."""
+        n, b = self.robot.n, self.n_base
+        w = np.ones(n) if weights is None else np.asarray(weights, dtype=float).reshape(n)
+        S = np.vstack([self.joint_rows(j, w[j], T[j]) for T in self._sets(tri) for j in range(n)])
+        T = scipy.linalg.qr(S, mode="r", check_finite=False)[0][: b + 1]
+        if T.shape[0] < b + 1:
+            return None
+        R, z, rho = np.triu(T[:b, :b]), T[:b, b], float(abs(T[b, b]))
+        D = np.linalg.norm(R, axis=0)
+        if np.any(D == 0) or not np.all(np.isfinite(R)):
+            return None
+        s = np.linalg.svd(R / D, compute_uv=False)
+        if not s[-1] > GRAM_KAPPA**-1 * s[0]:
+            return None
+        beta = scipy.linalg.solve_triangular(R, z, check_finite=False)
+        return beta, float(s[0] / s[-1]), D, R, rho
+
+    def _gram_accurate(self, tri, grams, center, rows: np.ndarray) -> bool:
+        """A-posteriori check of a Gram fold (module notes): every error bound below GRAM_TOL."""
+        p = self._growth()
+        ls = self._scaled_ls(None, tri)
+        if ls is None:
+            return False
+        beta, kappa, D, _, _ = ls
+        est = _EPS * p * kappa**2 * np.linalg.norm(D * (beta - center)) / max(np.linalg.norm(D * beta), 1e-300)
+        rss = sum(_rss(T, self.columns, beta) for T in self._sets(tri))
+        for j, cols in enumerate(self.columns):
+            G = grams[j]
+            if not np.any(G):
+                continue
+            # |x^T E x| <= eps p x^T diag(G) x for the Gram's rounding error E, at x = [beta - beta_c; -1]
+            x = np.append(beta[cols] - center[cols], -1.0)
+            if not rss[j] > _EPS * p * float(np.diag(G) @ (x * x)) / GRAM_TOL:
+                return False
+        # the same with the weights WLS will use (1/sigma_j from these residuals)
+        sigma = np.sqrt(rss / np.maximum(rows, 1))
+        lw = self._scaled_ls(1.0 / np.maximum(sigma, 1e-300), tri)
+        if lw is None:
+            return False
+        bw, kw, Dw, _, _ = lw
+        est_w = _EPS * p * kw**2 * np.linalg.norm(Dw * (bw - center)) / max(np.linalg.norm(Dw * bw), 1e-300)
+        return bool(max(est, est_w) <= GRAM_TOL)
 
     def merge(self, other: "Compressor") -> "Compressor":
         """Fold another compressor's triangles (same robot, terms and base set) into this one.
@@ -229,12 +474,15 @@ class Compressor:
         self.rows += other.rows
         self.sources += other.sources
         self.sum_tau2 += other.sum_tau2
+        for k, v in other.folded.items():
+            self.folded[k] = self.folded.get(k, 0) + v
         return self
 
-    def joint_rows(self, j: int, weight: float = 1.0) -> np.ndarray:
-        """Joint j's triangle embedded in the full base columns: (c_j + 1, b + 1), times `weight`."""
+    def joint_rows(self, j: int, weight: float = 1.0, T: np.ndarray | None = None) -> np.ndarray:
+        """Joint j's triangle (or `T`, one over the same columns) embedded in the full base
+        columns: (c_j + 1, b + 1), times `weight`."""
         b = self.n_base
-        T = self.triangles[j]
+        T = self.triangles[j] if T is None else T
         out = np.zeros((T.shape[0], b + 1))
         out[:, self.columns[j]] = T[:, :-1]
         out[:, b] = T[:, -1]
@@ -255,13 +503,17 @@ class Compressor:
 
     def joint_rss(self, beta: np.ndarray) -> np.ndarray:
         """Residual sum of squares of each joint for base parameters beta (b,): (n,) in (N m)^2."""
-        beta = np.asarray(beta, dtype=float)
-        out = np.empty(self.robot.n)
-        for j, cols in enumerate(self.columns):
-            T = self.triangles[j]
-            r = T[:, :-1] @ beta[cols] - T[:, -1]
-            out[j] = r @ r
-        return out
+        return _rss(self.triangles, self.columns, np.asarray(beta, dtype=float))
+
+
+def _rss(triangles, columns, beta: np.ndarray) -> np.ndarray:
+    """Per-joint residual sums of squares (n,) of per-joint triangles at base parameters beta."""
+    out = np.empty(len(triangles))
+    for j, cols in enumerate(columns):
+        T = triangles[j]
+        r = T[:, :-1] @ beta[cols] - T[:, -1]
+        out[j] = r @ r
+    return out
 
 
 def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, progress=None, chunk: int = CHUNK,
