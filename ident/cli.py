@@ -27,6 +27,7 @@ COMMANDS = [
     "payload",
     "check",
     "export",
+    "fleet",
     "demo",
 ]
 

@@ -62,6 +62,31 @@ def _resolve_options(prof: LogProfile, options) -> LogOptions:
     return opts.updated(options, "options")
 
 
+def _cutoff_of(pieces, opts: LogOptions, path) -> tuple[float, dict]:
+    longest = max(pieces, key=lambda s_: s_.n_samples)
+    f_max = opts.highest_frequency()
+    cutoff, info = cutoff_from_data(longest.q, 1.0 / longest.dt, None if f_max is None else CUTOFF_RATIO * f_max)
+    info["from"] = str(path)
+    return cutoff, info
+
+
+def first_file_cutoff(path, robot=None, profile=None, options=None) -> tuple[float | None, dict | None]:
+    """The low-pass cutoff (Hz) and its rule that :func:`load_dataset` would use for logs whose
+    first file is `path` (the given cutoff, or the one chosen from that file's data); same
+    arguments as :func:`load_dataset`. Conditioning each later file with ``options["cutoff"]``
+    set to it gives the segments of one call over all the files."""
+    prof = load_profile(profile)
+    opts = _resolve_options(prof, options)
+    given = opts.resolved_cutoff()
+    if given is not None:
+        return given, dict(rule="given")
+    raw = read_log(path, robot, prof)
+    pieces = uniform_pieces(raw, opts, [], dict(outside_windows=0, short=0))
+    if not pieces:
+        return None, None
+    return _cutoff_of(pieces, opts, path)
+
+
 def _load(paths, robot, profile, options, condition: bool) -> Dataset:
     prof = load_profile(profile)
     opts = _resolve_options(prof, options)
@@ -99,10 +124,7 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
             continue
         if cutoff is None and pieces:
             # one cutoff for every file, chosen on the first one, so the parallel filter is the same throughout
-            longest = max(pieces, key=lambda s_: s_.n_samples)
-            f_max = opts.highest_frequency()
-            cutoff, cutoff_info = cutoff_from_data(longest.q, 1.0 / longest.dt, None if f_max is None else CUTOFF_RATIO * f_max)
-            cutoff_info["from"] = str(path)
+            cutoff, cutoff_info = _cutoff_of(pieces, opts, path)
         if thresholds is None:
             thresholds = np.zeros(len(joint_names))
         for seg in pieces:

@@ -110,13 +110,10 @@ class BlockStore:
             self._halve()
 
     def extend(self, other: "BlockStore") -> None:
-        """Append another store's blocks (copies of the arrays), then apply the cap."""
+        """Append another store's blocks (copies of the arrays) one at a time, applying the cap at
+        each, so a store built from parts groups its blocks exactly as one built in a single pass."""
         for tri, r, s in zip(other.blocks, other.rows, other.seconds):
-            self.blocks.append([t.copy() for t in tri])
-            self.rows.append(r.copy())
-            self.seconds.append(s)
-        while len(self.blocks) > self.max_blocks:
-            self._halve()
+            self.append([t.copy() for t in tri], r, s)
 
     def _halve(self) -> None:
         # Merging neighbours keeps blocks contiguous in time (within a log); an odd block out stays as it is.

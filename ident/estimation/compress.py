@@ -174,13 +174,21 @@ class Compressor:
         self.block = None if block is None else int(block)
         self.blocks = BlockStore(max_blocks) if keep_blocks else None
 
+    def __getstate__(self) -> dict:
+        # Pickled to send compressed data between machines: the kernel's packing buffers and
+        # caches (megabytes) are rebuilt on first use, so only the triangles and counts travel.
+        state = dict(self.__dict__)
+        for k in ("_packing", "_all_kept", "_cm_for", "_cm", "_rows_now"):
+            state.pop(k, None)
+        return state
+
     @property
     def n_base(self) -> int:
         """Number of base parameters b."""
         return self.base.n_base
 
     def add(self, q, dq, ddq, tau, source: str = "", progress=None, keep=None, term_signals=None, block: int | None = None,
-            dt: float | None = None) -> "Compressor":
+            dt: float | None = None, ranges=None) -> "Compressor":
         """Fold one log into the triangles.
 
         Parameters
@@ -197,6 +205,9 @@ class Compressor:
             function's columns from q' and q''. The rigid-body columns always come from the kernel.
         block : samples per time block of this log (default: the compressor's `block`, else a
             twentieth of the log). dt : sample step (s), only to report block durations.
+        ranges : optional explicit time blocks, a list of [start, stop) sample ranges that tile
+            ``range(N)`` in order (overrides `block`; a caller folding one stretch of a longer
+            segment passes that stretch's share of the segment's blocks).
         """
         where = source or "data"
         try:
@@ -217,9 +228,13 @@ class Compressor:
                 self._fold_range(self.triangles, q, dq, ddq, tau, keep, progress, 0, ts)
             else:
                 N = q.shape[0]
-                L = block if block is not None else (self.block or block_length([N]))
+                if ranges is None:
+                    L = block if block is not None else (self.block or block_length([N]))
+                    ranges = block_ranges(N, L)
+                else:
+                    ranges = _check_ranges(ranges, N, where)
                 step = float(dt) if dt else float("nan")
-                for a, b in block_ranges(N, L):
+                for a, b in ranges:
                     tri = [np.zeros_like(T) for T in self.triangles]
                     kb = None if keep is None else keep[a:b]
                     self._fold_range(tri, q[a:b], dq[a:b], ddq[a:b], tau[a:b], kb, progress, a, None if ts is None else ts[a:b])
@@ -506,6 +521,13 @@ class Compressor:
         return _rss(self.triangles, self.columns, np.asarray(beta, dtype=float))
 
 
+def _check_ranges(ranges, N: int, where: str) -> list[tuple[int, int]]:
+    out = [(int(a), int(b)) for a, b in ranges]
+    if not out or out[0][0] != 0 or out[-1][1] != N or any(b <= a for a, b in out) or any(p[1] != r[0] for p, r in zip(out[:-1], out[1:])):
+        raise IdentError(f"{where}: block ranges must tile the {N} samples in order, got {out[:3]}{'...' if len(out) > 3 else ''}")
+    return out
+
+
 def _rss(triangles, columns, beta: np.ndarray) -> np.ndarray:
     """Per-joint residual sums of squares (n,) of per-joint triangles at base parameters beta."""
     out = np.empty(len(triangles))
@@ -557,16 +579,33 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
     done = 0
     for seg in segs:
         cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
-        slow = seg.slow
-        if slow is None and slow_velocity:
-            slow = np.abs(np.asarray(seg.dq, dtype=float)) < slow_velocity
-        keep = ~np.asarray(slow, dtype=bool) if (drop_slow and slow is not None) else None
-        if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
-            keep = ~seg.stuck if keep is None else keep & ~seg.stuck
-        signals = None if seg.dry is None else term_columns(comp.terms, seg.dq, seg.ddq, seg.dry)
-        comp.add(seg.q, seg.dq, seg.ddq, seg.tau, source=seg.source, progress=cb, keep=keep, term_signals=signals, dt=dt)
+        add_segment(comp, seg, drop_slow, slow_velocity, progress=cb, dt=dt)
         done += seg.q.shape[0]
     return comp
+
+
+def add_segment(comp: Compressor, seg: "SegmentData", drop_slow: bool, slow_velocity: float | None = None, start: int = 0,
+                stop: int | None = None, ranges=None, progress=None, dt: float | None = None) -> Compressor:
+    """Fold samples ``start:stop`` of one segment into `comp` as :func:`compress` does: slow
+    samples out of the dry-friction rows (with `drop_slow`), stuck samples out of every row, the
+    segment's filtered dry-friction signals in place of the computed ones.
+
+    seg : a :class:`SegmentData` (from :func:`iter_segments` with ``with_slow=True``).
+    ranges : the time blocks of this stretch, [start, stop) relative to `start` (default: the
+        compressor's block length over the stretch). Folding a segment stretch by stretch with
+        its blocks' ranges gives the blocks of one call (up to the Gram route's rounding).
+    """
+    stop = seg.q.shape[0] if stop is None else int(stop)
+    sl = slice(int(start), stop)
+    slow = seg.slow
+    if slow is None and slow_velocity:
+        slow = np.abs(np.asarray(seg.dq, dtype=float)) < slow_velocity
+    keep = ~np.asarray(slow[sl], dtype=bool) if (drop_slow and slow is not None) else None
+    if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
+        keep = ~seg.stuck[sl] if keep is None else keep & ~seg.stuck[sl]
+    signals = None if seg.dry is None else term_columns(comp.terms, seg.dq[sl], seg.ddq[sl], seg.dry[sl])
+    return comp.add(seg.q[sl], seg.dq[sl], seg.ddq[sl], seg.tau[sl], source=seg.source, progress=progress, keep=keep,
+                    term_signals=signals, dt=dt, ranges=ranges)
 
 
 @dataclass

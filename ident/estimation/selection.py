@@ -66,13 +66,33 @@ def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, 
     total = sum(s.q.shape[0] for s in segs)
     if total == 0:
         raise DataError("term choice: no samples")
-    stride = max(1, int(np.ceil(total / max_rows)))
-    scores = {}
-    sigma2 = None
+    stride = choice_stride(total, max_rows)
+    return choose_from_parts(robot, choice_parts(robot, segs, stride, cands, folds), total, stride)
+
+
+def choice_stride(total: int, max_rows: int = MAX_ROWS) -> int:
+    """Every how many samples the term choice uses, for `total` samples in all."""
+    return max(1, int(np.ceil(total / max_rows)))
+
+
+def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: int = FOLDS, into: dict | None = None) -> dict:
+    """The held-out folds of some segments for every candidate: {terms: [Compressor] * folds}.
+
+    segs : :class:`ident.estimation.compress.SegmentData` records; stride : from
+    :func:`choice_stride` over ALL the data the choice is for. into : parts of the segments
+    before these, to continue (then `candidates` and `folds` are theirs): folding all segments
+    this way, part after part, gives bit for bit the folds of :func:`choose_terms`. Parts of
+    different segments folded apart (e.g. on different machines) combine with :func:`merge_parts`
+    (equal up to rounding).
+    """
+    out = {}
     with single_thread_blas():
-        for terms in cands:
-            bp = base_parameters(robot, terms)
-            comps = [Compressor(robot, terms, bp, keep_blocks=False) for _ in range(folds)]
+        for terms in (list(into) if into is not None else [parse_terms(c) for c in candidates]):
+            if into is not None:
+                comps = into[terms]
+                folds = len(comps)
+            else:
+                comps = [Compressor(robot, terms, base_parameters(robot, terms), keep_blocks=False) for _ in range(folds)]
             for seg in segs:
                 m = seg.q.shape[0]
                 idx = np.arange(0, m, stride)
@@ -80,10 +100,31 @@ def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, 
                     continue
                 keep = None if seg.stuck is None else ~seg.stuck[idx]
                 cols = None if seg.dry is None else term_columns(terms, seg.dq[idx], seg.ddq[idx], seg.dry[idx])
-                for f, part in enumerate(np.array_split(np.arange(idx.size), folds)):
-                    sl = part
+                for f, sl in enumerate(np.array_split(np.arange(idx.size), folds)):
                     comps[f].add(seg.q[idx][sl], seg.dq[idx][sl], seg.ddq[idx][sl], seg.tau[idx][sl], source=seg.source,
                                  keep=None if keep is None else keep[sl], term_signals=None if cols is None else cols[sl])
+            out[terms] = comps
+    return out
+
+
+def merge_parts(parts: dict, more: dict) -> dict:
+    """Fold the parts `more` (same candidates and folds) into `parts`, in place; returns `parts`."""
+    for terms, comps in more.items():
+        for a, b in zip(parts[terms], comps):
+            a.merge(b)
+    return parts
+
+
+def choose_from_parts(robot: Robot, parts: dict, total: int, stride: int) -> TermChoice:
+    """The choice of :func:`choose_terms` from its parts (:func:`choice_parts`, merged over all the data)."""
+    cands = list(parts)
+    folds = len(parts[cands[0]])
+    scores = {}
+    sigma2 = None
+    with single_thread_blas():
+        for terms in cands:
+            comps = parts[terms]
+            bp = comps[0].base
             if any(c.samples == 0 for c in comps):
                 raise DataError("term choice: too few samples for the held-out folds")
             rss = np.zeros(robot.n)

@@ -1,0 +1,247 @@
+"""The work units of a fleet run: plain functions a worker runs on what it can reach itself.
+
+Map (per log, on the worker that reads it): :func:`period_cutoff` (the cutoff of a period's first
+readable log, as ``ident fit`` chooses it), :func:`condition_log` (read and condition one log; the
+data set stays in that worker's memory), :func:`describe_log` (the few numbers the plan needs),
+:func:`choice_parts_of` (the held-out folds for the friction-term choice) and
+:func:`compress_stretch` (one stretch of a segment, a whole number of time blocks, into per-joint
+triangles). Reduce (per arm and period): :func:`choose_period_terms` and :func:`fit_period`.
+Only compressed triangles and small summaries leave a worker; raw samples never do.
+
+:func:`plan_period` cuts the period's segments into stretches of at most :data:`STRETCH_BLOCKS`
+time blocks, so one long log spreads over several workers. Folding the stretches and merging them
+in time order gives the same per-block triangles, the same block grouping (the memory cap is
+applied block by block, :meth:`ident.estimation.blocks.BlockStore.extend`) and the same term
+choice as ``ident fit`` on the period's logs, up to rounding.
+
+A log that cannot be read or conditioned gives a :class:`Failed` record (its name and the error
+line) instead of an exception, so the rest of its period carries on without it.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..arm.base import base_parameters
+from ..arm.loader import load_robot
+from ..arm.model import DRY_FRICTION_TERMS, parse_terms
+from ..data.load import first_file_cutoff, load_dataset
+from ..errors import first_line
+from ..estimation.blocks import MAX_BLOCKS, block_length, block_ranges
+from ..estimation.compress import Compressor, add_segment, iter_segments
+from ..estimation.estimate import fit_compressed
+from ..estimation.selection import choice_parts, choice_stride, choose_from_parts, merge_parts
+
+#: Most time blocks in one compression work unit (a stretch of a segment).
+STRETCH_BLOCKS = 16
+
+_ROBOTS: dict = {}
+_BASES: dict = {}
+
+
+@dataclass
+class Failed:
+    """A log (or period) that could not be processed: its name and the one-line reason."""
+
+    name: str
+    message: str
+
+
+@dataclass
+class LogJob:
+    """What a worker needs for one log: path or URL, description, profile, conditioning options."""
+
+    log: str
+    description: str
+    profile: str | None
+    options: dict = field(default_factory=dict)
+
+
+def robot_of(description: str):
+    """The arm of a description file, loaded once per worker process (keyed by path and mtime)."""
+    try:
+        key = (description, os.stat(description).st_mtime_ns)
+    except OSError:
+        key = (description, None)
+    if key not in _ROBOTS:
+        _ROBOTS[key] = load_robot(description)
+    return _ROBOTS[key]
+
+
+def base_of(description: str, terms):
+    """Base parameters of the description's arm for `terms`, computed once per worker process."""
+    robot = robot_of(description)
+    key = (id(robot), tuple(terms))
+    if key not in _BASES:
+        _BASES[key] = base_parameters(robot, tuple(terms))
+    return _BASES[key]
+
+
+def period_cutoff(jobs: list[LogJob]):
+    """(cutoff Hz or None, rule dict, failures) for a period: taken from the first log that reads,
+    as :func:`ident.data.load.load_dataset` takes it from its first file."""
+    failed = []
+    for job in jobs:
+        try:
+            cut, info = first_file_cutoff(job.log, robot_of(job.description), job.profile, job.options)
+        except Exception as exc:  # noqa: BLE001 - any failure of one log is reported, not fatal
+            failed.append(Failed(job.log, first_line(exc)))
+            continue
+        if cut is not None:
+            return cut, info, failed
+    return None, None, failed
+
+
+def condition_log(job: LogJob, cutoff):
+    """Read and condition one log with the period's cutoff: a Dataset, or :class:`Failed`."""
+    if isinstance(cutoff, tuple):
+        cutoff = cutoff[0]
+    try:
+        opts = dict(job.options)
+        if cutoff is not None:
+            opts["cutoff"] = cutoff
+        # no cutoff: no log of the period read; loading this one says why
+        return load_dataset([job.log], robot_of(job.description), job.profile, opts)
+    except Exception as exc:  # noqa: BLE001
+        return Failed(job.log, first_line(exc))
+
+
+def describe_log(data) -> dict:
+    """The plan's view of a conditioned log: segment sizes and steps, warnings; or the failure."""
+    if isinstance(data, Failed):
+        return {"failed": data}
+    segs = data.segments
+    return {"sizes": [s.n_samples for s in segs], "steps": [s.dt for s in segs if s.t is not None and s.n_samples > 1],
+            "sources": [str(s.source) for s in segs], "warnings": list(data.warnings), "samples": data.n_samples,
+            "cutoff": data.info.get("cutoff"), "options": data.info.get("options", {})}
+
+
+@dataclass
+class Plan:
+    """How a period's good logs are cut into work: block length (samples), sample step (s),
+    term-choice stride, and per log a list of stretches ``(segment, start, stop, ranges)``."""
+
+    block: int
+    dt: float | None
+    stride: int
+    total: int
+    stretches: list[list[tuple[int, int, int, list]]]
+
+
+def plan_period(summaries: list[dict], stretch_blocks: int = STRETCH_BLOCKS) -> Plan:
+    """The work plan of a period from its logs' :func:`describe_log` summaries (good logs only),
+    with the block rule of :func:`ident.estimation.blocks.block_length` over ALL its segments."""
+    sizes = [n for s in summaries for n in s["sizes"]]
+    steps = [d for s in summaries for d in s["steps"]]
+    dt = float(np.median(steps)) if steps else None
+    cutoff = summaries[0]["cutoff"] if summaries else None
+    L = block_length(sizes, dt, float(cutoff) if cutoff else None)
+    total = int(sum(sizes))
+    plan = []
+    for s in summaries:
+        mine = []
+        for k, n in enumerate(s["sizes"]):
+            ranges = block_ranges(n, L)
+            for g in range(0, len(ranges), stretch_blocks):
+                part = ranges[g : g + stretch_blocks]
+                a, b = part[0][0], part[-1][1]
+                mine.append((k, a, b, [(x - a, y - a) for x, y in part]))
+        plan.append(mine)
+    return Plan(L, dt, choice_stride(total), total, plan)
+
+
+def choice_parts_of(data, description: str, stride: int, into: dict | None = None) -> dict:
+    """Held-out folds of one conditioned log for every candidate friction model (small triangles),
+    continuing the folds `into` of the period's earlier logs when given (the exact mode)."""
+    robot = robot_of(description)
+    return choice_parts(robot, list(iter_segments(robot, data, with_slow=True)), stride, into=into)
+
+
+def choose_period_terms(description: str, total: int, stride: int, *parts):
+    """The period's friction terms from the merged folds of its logs (in time order): a TermChoice."""
+    robot = robot_of(description)
+    merged = parts[0]
+    for p in parts[1:]:  # split mode; the exact mode passes one part carried through the logs
+        merged = merge_parts(merged, p)
+    return choose_from_parts(robot, merged, total, stride)
+
+
+def compress_stretch(data, description: str, terms, segment: int, start: int, stop: int, ranges, dt, keep_blocks: bool = True) -> Compressor:
+    """Samples ``start:stop`` of one segment of a conditioned log, folded on their own into
+    per-joint triangles with their time blocks (no memory cap: the reduce applies it block by
+    block). Stretches folded apart and merged equal one pass up to rounding (the split mode)."""
+    terms = _terms(terms)
+    robot = robot_of(description)
+    comp = Compressor(robot, terms, base_of(description, terms), keep_blocks=keep_blocks, max_blocks=max(2, len(ranges)))
+    seg = list(iter_segments(robot, data, with_slow=True))[segment]
+    return add_segment(comp, seg, any(c in DRY_FRICTION_TERMS for c in comp.terms), start=start, stop=stop, ranges=ranges, dt=dt)
+
+
+def continue_compression(data, description: str, terms, comp, segment: int, start: int, stop: int, ranges, dt, block: int,
+                         keep_blocks: bool = True) -> Compressor:
+    """Fold samples ``start:stop`` of one segment into the compressed state `comp` carried over
+    from the period's previous stretch (None: a new one): the exact mode. The stretches of a
+    period, folded in time order this way, give bit for bit the compressed state of
+    :func:`ident.estimation.compress.compress` over the period's logs (which ``ident fit`` fits):
+    the fold route of each block depends on the data folded before it."""
+    terms = _terms(terms)
+    robot = robot_of(description)
+    if comp is None:
+        comp = Compressor(robot, terms, base_of(description, terms), keep_blocks=keep_blocks)
+        comp.block = int(block)
+    seg = list(iter_segments(robot, data, with_slow=True))[segment]
+    return add_segment(comp, seg, any(c in DRY_FRICTION_TERMS for c in comp.terms), start=start, stop=stop, ranges=ranges, dt=dt)
+
+
+def _terms(terms):
+    return tuple(getattr(terms, "terms", terms))
+
+
+@dataclass
+class PeriodFit:
+    """A period's fit: the FitResult, the logs it used, the data warnings, the block length."""
+
+    result: object
+    logs: list[str]
+    warnings: list[str]
+    block: int
+    options: dict
+
+
+def fit_period(description: str, terms, method: str, fit_options: dict, block: int, sources: list[str], logs: list[str],
+               warnings: list[str], options: dict, *parts) -> PeriodFit:
+    """Merge a period's compressed stretches in time order and fit: the reduce step."""
+    import warnings as _w
+
+    choice = terms if hasattr(terms, "terms") else None
+    terms = _terms(terms)
+    robot = robot_of(description)
+    if len(parts) == 1:  # the exact mode's one carried state
+        comp = parts[0]
+    else:
+        comp = Compressor(robot, terms, base_of(description, terms), keep_blocks=all(p.blocks is not None for p in parts),
+                          max_blocks=MAX_BLOCKS)
+        for p in parts:
+            comp.merge(p)
+    comp.block = int(block)
+    comp.sources = list(sources)
+    with _w.catch_warnings():
+        # the fit lists its warnings in the result; Python's own warning lines would only repeat them
+        _w.simplefilter("ignore")
+        res = fit_compressed(comp, method, **fit_options)
+    res.term_choice = choice
+    return PeriodFit(res, logs, warnings, int(block), options)
+
+
+def parse_fixed_terms(text) -> tuple[str, ...]:
+    """Joint terms from an option ("auto" is handled by the caller)."""
+    return parse_terms(text)
+
+
+def short_name(path: str) -> str:
+    """A log's name for messages: the path as given (URLs unchanged)."""
+    return str(Path(path)) if "://" not in path else path
