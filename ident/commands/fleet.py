@@ -11,7 +11,7 @@ from ..errors import IdentError
 from ..estimation.result import METHODS
 from ..fileio import atomic_folder
 from ..fleet.catalog import PERIODS, catalog_from_pattern, check_local_files, group_logs, read_catalog
-from ..fleet.drift import ALARM, BASELINE_PERIODS, WATCH, drift_flags, flags_table, fleet_flags
+from ..fleet.drift import ALARM, BASELINE_PERIODS, FLEET_ALARM, WATCH, drift_flags, flags_table, fleet_flags
 from ..fleet.engine import FitSettings, dask_client, run_fleet
 from ..fleet.outputs import latest_fits, results_table, write_outputs
 from ..fleet.report import render_fleet_report
@@ -57,14 +57,17 @@ def add_parser(sub) -> None:
     g.add_argument("--scheduler", metavar="ADDRESS", help="run on an existing Dask cluster (e.g. tcp://host:8786); default: a local one")
     g.add_argument("--workers", type=int, metavar="N", help="worker processes of the local cluster (default: the machine's cores)")
     g.add_argument("--connect-timeout", type=float, default=10.0, metavar="S", help="seconds to wait for the scheduler (default 10)")
+    g.add_argument("--split-logs", action="store_true",
+                   help="compress the stretches of a period's logs in parallel and merge them (faster for few, long logs; equal to "
+                   "'ident fit' up to rounding instead of bit for bit; the consistent fit then agrees to its solver's tolerance)")
     g.add_argument("--strict", action="store_true", help="stop at the first log or period that fails (default: report it and go on)")
     d = p.add_argument_group("drift")
     d.add_argument("--alarm", type=float, default=ALARM, metavar="SIGMAS",
                    help=f"flag a joint whose friction moves more than this many combined standard deviations from its baseline (default {ALARM:g})")
     d.add_argument("--baseline-periods", type=int, default=BASELINE_PERIODS, metavar="N", help=f"first periods that make each arm's baseline (default {BASELINE_PERIODS})")
     d.add_argument("--reference", metavar="PERIOD", help="a period label (e.g. 2026-W10) to use as every arm's baseline instead")
-    d.add_argument("--fleet-alarm", type=float, default=ALARM, metavar="SIGMAS",
-                   help=f"flag an arm this far from the fleet's median, in the fleet's spread (default {ALARM:g})")
+    d.add_argument("--fleet-alarm", type=float, default=FLEET_ALARM, metavar="SIGMAS",
+                   help=f"flag an arm this far from the median of the other arms of its description, in their spread (default {FLEET_ALARM:g})")
     d.add_argument("--watch", default=",".join(WATCH), metavar="CODES", help=f"friction parameters watched (default {','.join(WATCH)})")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
     p.add_argument("--json", action="store_true", help="print the run summary as JSON")
@@ -118,10 +121,10 @@ def run(args) -> int:
     for e in entries:
         log_options(e)  # bad excitation files fail here, on the client, before the cluster starts
     settings = FitSettings(method=args.method, terms=terms, fit_options={"uncertainty": args.uncertainty}, log_options=log_options,
-                           strict=args.strict)
+                           strict=args.strict, split=args.split_logs)
     show = not (args.quiet or args.json)
     with dask_client(args.scheduler, args.workers, args.connect_timeout) as client:
-        result = run_fleet(client, groups, settings, progress=show, quiet=args.quiet or args.json)
+        result = run_fleet(client, groups, settings, progress=show, quiet=args.quiet)
     if not result.fits:
         why = "; ".join(f"{f.name}: {f.message}" for f in result.failures[:3])
         raise IdentError(f"{args.source}: no arm and period could be fitted ({why})")

@@ -41,7 +41,7 @@ class FleetSpec:
     days_between: int = 7
     period: float = 4.0
     harmonics: int = 3
-    cycles: int = 2
+    cycles: int = 4
     control_rate: float = 100.0
     log_rate: float = 50.0
     substeps: int = 2
@@ -74,7 +74,7 @@ def make_fleet(folder, description, spec: FleetSpec | None = None, drift: dict |
     """Simulate a fleet into `folder` (see the module notes); returns {"catalog": path, "truth":
     {arm: [per period {"inertial", "joint_params"}]}, "arms": [ids]}.
 
-    torque_noise : per-joint std of the logged torque, N m (default 0.5 % of each effort limit).
+    torque_noise : per-joint std of the logged torque, N m (default 0.25 % of each effort limit).
     """
     spec = spec or FleetSpec()
     drift = drift or {}
@@ -86,7 +86,7 @@ def make_fleet(folder, description, spec: FleetSpec | None = None, drift: dict |
     t, q, dq, ddq = traj.sample(spec.control_rate, spec.cycles)
     t, q, dq, ddq = t[:-1], q[:-1], dq[:-1], ddq[:-1]
     eff = np.where(np.isfinite(robot.effort_limit) & (robot.effort_limit > 0), robot.effort_limit, 10.0)
-    noise = np.asarray(torque_noise, float) if torque_noise is not None else 0.005 * eff
+    noise = np.asarray(torque_noise, float) if torque_noise is not None else 0.0025 * eff
     nominal = joint_terms(robot)
     rows, truth, arms = [], {}, []
     for a in range(spec.arms):
