@@ -50,7 +50,7 @@ class LogEntry:
 
 
 def _is_url(text: str) -> bool:
-    return bool(re.match(r"^[a-z][a-z0-9+.-]*://", text, re.I))
+    return bool(re.match(r"^[a-z][a-z0-9+.-]*://", text, re.IGNORECASE))
 
 
 def _resolve(text: str, folder: Path) -> str:

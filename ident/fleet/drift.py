@@ -17,7 +17,7 @@ standard deviation s_o (m arms; the spread the fleet really has, as-built differ
 the arm is flagged when ``|x - median_o| > k_fleet sqrt(s_o^2 (1 + 1/m) + s^2)`` (a prediction
 interval for one more arm, so the arm's own outlying value does not widen its yardstick). With
 normal as-built spread this is close to a t variable with m - 1 degrees of freedom: k_fleet = 5
-(:data:`FLEET_ALARM`) gives 0.25 % per comparison with 7 others, 0.0035 % with 50.
+(:data:`FLEET_ALARM`) gives 0.25 % per comparison with 7 others, 0.0008 % with 49.
 
 Each :class:`Flag` names the arm, joint, parameter, kind, period (label and first day), the size
 of the change (estimate minus reference, and relative) and its number of combined standard deviations.

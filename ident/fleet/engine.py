@@ -26,9 +26,9 @@ from dataclasses import dataclass, field
 from urllib.parse import urlparse
 
 from ..errors import IdentError, first_line
+from ..estimation.selection import merge_parts
 from ..progress import Progress
 from . import tasks as T
-from ..estimation.selection import merge_parts
 from .catalog import Group
 
 
@@ -155,10 +155,8 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
     bar.total = max(run.tasks, 1)
     try:
         with bar:
-            done = 0
-            for f in ac:
+            for done, f in enumerate(ac, start=1):
                 kind, p, _ = kinds.pop(f.key)
-                done += 1
                 bar.update(done)
                 if kind[0] == "summary":
                     try:

@@ -35,9 +35,9 @@ def results_table(groups: list[Group], fits: dict) -> pd.DataFrame:
             continue
         r = pf.result
         std = r.std
-        diag = dict(method=r.method, terms=",".join(r.terms), uncertainty=r.uncertainty.get("method", "classic"),
-                    blocks=int(r.uncertainty.get("blocks", 0)), condition=float(r.condition),
-                    residual_rms=float(np.sqrt(np.mean(np.asarray(r.residual_rms, float) ** 2))), warnings=len(r.warnings) + len(pf.warnings))
+        diag = {"method": r.method, "terms": ",".join(r.terms), "uncertainty": r.uncertainty.get("method", "classic"),
+                "blocks": int(r.uncertainty.get("blocks", 0)), "condition": float(r.condition),
+                "residual_rms": float(np.sqrt(np.mean(np.asarray(r.residual_rms, float) ** 2))), "warnings": len(r.warnings) + len(pf.warnings)}
         for name, est, s in zip(r.names, r.beta, std):
             rows.append(dict(arm=g.arm, description=g.description, period=g.period, period_start=g.start, parameter=name,
                              estimate=float(est), std=float(s), samples=int(r.samples), logs=len(pf.logs), **diag))
@@ -71,5 +71,5 @@ def write_outputs(folder: Path, table: pd.DataFrame, latest: dict, flags: pd.Dat
     for arm, (_, pf) in latest.items():
         save_parameters(folder / "params" / f"{arm}.yaml", parameter_set(pf))
     flags.to_csv(folder / "flags.csv", index=False)
-    pd.DataFrame([dict(name=f.name, reason=f.message) for f in failures], columns=["name", "reason"]).to_csv(folder / "failures.csv", index=False)
+    pd.DataFrame([{"name": f.name, "reason": f.message} for f in failures], columns=["name", "reason"]).to_csv(folder / "failures.csv", index=False)
     (folder / "report.html").write_text(report_html, encoding="utf-8")

@@ -9,7 +9,7 @@ the alarm level.
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import numpy as np
 import pandas as pd
@@ -49,7 +49,7 @@ def _figure(rows: pd.DataFrame, code: str, flagged: set) -> str:
 def render_fleet_report(table: pd.DataFrame, flags: pd.DataFrame, failures, settings: dict, watch=WATCH) -> str:
     """The HTML page (a string). table: the fleet table; flags: :func:`ident.fleet.drift.flags_table`;
     failures: :class:`ident.fleet.tasks.Failed` records; settings: alarm level, baseline, method, terms..."""
-    stamp = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     n_arms = table["arm"].nunique() if not table.empty else 0
     n_periods = table[["arm", "period"]].drop_duplicates().shape[0] if not table.empty else 0
     parts = [f"<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<title>Fleet report</title>\n<style>{_CSS}</style>\n</head>\n<body>",

@@ -1,0 +1,78 @@
+"""Benchmark of `ident fleet`'s engine: wall time on 1 and 2 Dask workers, and its overhead per log.
+
+A simulated fleet (ident.fleet.simulated, the invented 4-joint arm of tests/data/quad4.urdf) of
+ARMS x PERIODS short logs, one log per arm and period (every log is its own fit). Measured in one
+run, on the same logs and settings:
+
+* the plain loop: the same task functions called one after the other in this process
+  (ident.fleet.engine.run_serial), the yardstick;
+* a LocalCluster of 1 worker, then of 2 workers (single-threaded worker processes), each warmed
+  up first on a small fleet so imports and compiled kernels are not timed.
+
+Targets: 2 workers at least 1.7x faster than 1; the engine's overhead per log (1 worker against
+the plain loop) under 10 %.
+
+    python scripts/bench_fleet.py            # 25 arms x 8 periods = 200 logs, terms fv,fc,ia
+    python scripts/bench_fleet.py --auto     # the default friction-term choice (about 4x the fit work)
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from ident.data.options import excitation_options
+from ident.fleet.catalog import group_logs, read_catalog
+from ident.fleet.engine import FitSettings, dask_client, run_fleet, run_serial
+from ident.fleet.simulated import FleetSpec, make_fleet
+
+QUAD4 = ROOT / "tests" / "data" / "quad4.urdf"
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--arms", type=int, default=25)
+    ap.add_argument("--periods", type=int, default=8)
+    ap.add_argument("--auto", action="store_true", help="terms auto (the default of ident fleet) instead of fv,fc,ia")
+    args = ap.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        t0 = time.perf_counter()
+        made = make_fleet(Path(tmp) / "fleet", QUAD4, FleetSpec(arms=args.arms, periods=args.periods, cycles=2, days_between=1))
+        warm = make_fleet(Path(tmp) / "warm", QUAD4, FleetSpec(arms=2, periods=2, cycles=2, days_between=1, seed=9))
+        print(f"simulated {args.arms * args.periods} logs in {time.perf_counter() - t0:.1f} s")
+        ex = excitation_options(Path(tmp) / "fleet" / "coefficients.yaml")
+        settings = FitSettings(terms="auto" if args.auto else ("fv", "fc", "ia"), log_options=lambda e: dict(ex))
+        groups = group_logs(read_catalog(made["catalog"]), "day")
+        warm_groups = group_logs(read_catalog(warm["catalog"]), "day")
+        n = sum(len(g.entries) for g in groups)
+        run_serial(warm_groups, settings)
+        t0 = time.perf_counter()
+        ref = run_serial(groups, settings)
+        loop = time.perf_counter() - t0
+        walls = {}
+        for workers in (1, 2):
+            with dask_client(None, workers) as client:
+                run_fleet(client, warm_groups, settings, progress=False, quiet=True)
+                t0 = time.perf_counter()
+                run = run_fleet(client, groups, settings, progress=False, quiet=True)
+                walls[workers] = time.perf_counter() - t0
+            assert len(run.fits) == len(ref.fits) == len(groups), (len(run.fits), len(ref.fits))
+    terms = "auto" if args.auto else "fv,fc,ia"
+    print(f"fleet of {n} logs ({len(groups)} arm-periods), quad4, terms {terms}, consistent fit, block jackknife")
+    print(f"plain loop (same task functions, this process): {loop:8.2f} s  ({1e3 * loop / n:.1f} ms a log)")
+    print(f"Dask, 1 worker:                                 {walls[1]:8.2f} s  ({1e3 * walls[1] / n:.1f} ms a log)")
+    print(f"Dask, 2 workers:                                {walls[2]:8.2f} s  ({1e3 * walls[2] / n:.1f} ms a log)")
+    print(f"speed-up 2 workers vs 1: {walls[1] / walls[2]:.2f}x (target >= 1.7x)")
+    over = walls[1] / loop - 1
+    print(f"engine overhead per log (1 worker vs plain loop): {1e3 * (walls[1] - loop) / n:+.1f} ms = {100 * over:+.1f} % (target < 10 %)")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
