@@ -5,7 +5,7 @@ ARMS x PERIODS short logs, one log per arm and period (every log is its own fit)
 run, on the same logs and settings:
 
 * the plain loop: the same task functions called one after the other in this process
-  (ident.fleet.engine.run_serial), the yardstick;
+  (ident.fleet.engine.run_serial), with one BLAS thread as each Dask worker has: the yardstick;
 * a LocalCluster of 1 worker, then of 2 workers (single-threaded worker processes), each warmed
   up first on a small fleet so imports and compiled kernels are not timed.
 
@@ -19,6 +19,7 @@ the plain loop) under 10 %.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import tempfile
 import time
@@ -26,6 +27,10 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+# Dask's worker processes run with one BLAS/OpenMP thread (its nanny sets these); the plain loop
+# gets the same, so both run the same single-threaded per-log code.
+for _var in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS"):
+    os.environ[_var] = "1"
 
 from ident.data.options import excitation_options
 from ident.fleet.catalog import group_logs, read_catalog

@@ -70,23 +70,6 @@ def _cutoff_of(pieces, opts: LogOptions, path) -> tuple[float, dict]:
     return cutoff, info
 
 
-def first_file_cutoff(path, robot=None, profile=None, options=None) -> tuple[float | None, dict | None]:
-    """The low-pass cutoff (Hz) and its rule that :func:`load_dataset` would use for logs whose
-    first file is `path` (the given cutoff, or the one chosen from that file's data); same
-    arguments as :func:`load_dataset`. Conditioning each later file with ``options["cutoff"]``
-    set to it gives the segments of one call over all the files."""
-    prof = load_profile(profile)
-    opts = _resolve_options(prof, options)
-    given = opts.resolved_cutoff()
-    if given is not None:
-        return given, dict(rule="given")
-    raw = read_log(path, robot, prof)
-    pieces = uniform_pieces(raw, opts, [], dict(outside_windows=0, short=0))
-    if not pieces:
-        return None, None
-    return _cutoff_of(pieces, opts, path)
-
-
 def _load(paths, robot, profile, options, condition: bool) -> Dataset:
     prof = load_profile(profile)
     opts = _resolve_options(prof, options)

@@ -1,7 +1,7 @@
 """Running a fleet on Dask: the client side of the map-reduce in :mod:`ident.fleet.tasks`.
 
-Per arm and period the client submits: the period's cutoff (read from its first log), one
-conditioning task per log (its data set stays in that worker's memory) and a summary of each.
+Per arm and period the client submits one conditioning task per log (its data set stays in that
+worker's memory; the later logs take the first log's cutoff) and a summary of each.
 When a period's summaries are in, it plans the period (:func:`ident.fleet.tasks.plan_period`) and
 submits the term-choice folds, one compression task per stretch of segment (scheduled where the
 data set lives), the term choice and the fit. Only summaries, compressed triangles and fit
@@ -142,14 +142,13 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
         jobs = _jobs(g, settings)
         p = _Period(g, jobs)
         periods[(g.arm, g.period)] = p
-        cut = None if jobs[0].options.get("cutoff") is not None else submit(T.period_cutoff, jobs)
+        first = None
         for k, job in enumerate(jobs):
-            d = submit(T.condition_log, job, cut)
+            d = submit(T.condition_log, job, first)
             p.data.append(d)
             s = submit(T.describe_log, d)
+            first = s if k == 0 else first
             watch(s, ("summary", k), p)
-        if cut is not None:
-            watch(cut, ("other", None), p)
         for d in p.data:
             watch(d, ("other", None), p)
     bar.total = max(run.tasks, 1)
@@ -214,17 +213,22 @@ def _second_stage(run: FleetRun, p: _Period, settings: FitSettings, submit, quie
         chunks = [submit(T.compress_stretch, p.data[k], g.description, terms, seg, a, b, ranges, plan.dt, keep)
                   for k, mine in zip(good, plan.stretches) for seg, a, b, ranges in mine]
         new += chunks
-    else:
-        state = None
-        for k, mine in zip(good, plan.stretches):
-            for seg, a, b, ranges in mine:
-                state = submit(T.continue_compression, p.data[k], g.description, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep)
-                new.append(state)
-        chunks = [state]
     sources = [src for s in sums for src in s["sources"]]
     warns = [w for s in sums for w in s["warnings"]]
-    p.fit = submit(T.fit_period, g.description, terms, settings.method, settings.fit_options, plan.block, sources,
-                   [p.jobs[k].log for k in good], warns, sums[0]["options"] | {"cutoff": sums[0]["cutoff"]}, *chunks)
+    logs = [p.jobs[k].log for k in good]
+    options = sums[0]["options"] | {"cutoff": sums[0]["cutoff"]}
+    if settings.split:
+        p.fit = submit(T.fit_period, g.description, terms, settings.method, settings.fit_options, plan.block, sources,
+                       logs, warns, options, *chunks)
+    else:
+        work = [(k, *st) for k, mine in zip(good, plan.stretches) for st in mine]
+        state = None
+        for k, seg, a, b, ranges in work[:-1]:
+            state = submit(T.continue_compression, p.data[k], g.description, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep)
+            new.append(state)
+        k, seg, a, b, ranges = work[-1]
+        p.fit = submit(T.fold_and_fit, p.data[k], g.description, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep,
+                       settings.method, settings.fit_options, sources, logs, warns, options)
     new.append(p.fit)
     p.data = []  # the cluster keeps the data sets while tasks need them, no longer
     return new
@@ -235,9 +239,11 @@ def run_serial(groups: list[Group], settings: FitSettings, quiet: bool = True) -
     run = FleetRun()
     for g in groups:
         jobs = _jobs(g, settings)
-        cut = None if jobs[0].options.get("cutoff") is not None else T.period_cutoff(jobs)
-        data = [T.condition_log(job, cut) for job in jobs]
-        sums = [T.describe_log(d) for d in data]
+        data = [T.condition_log(jobs[0])]
+        sums = [T.describe_log(data[0])]
+        for job in jobs[1:]:
+            data.append(T.condition_log(job, sums[0]))
+            sums.append(T.describe_log(data[-1]))
         good = []
         for k, s in enumerate(sums):
             if "failed" in s:

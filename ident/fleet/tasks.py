@@ -1,8 +1,8 @@
 """The work units of a fleet run: plain functions a worker runs on what it can reach itself.
 
-Map (per log, on the worker that reads it): :func:`period_cutoff` (the cutoff of a period's first
-readable log, as ``ident fit`` chooses it), :func:`condition_log` (read and condition one log; the
-data set stays in that worker's memory), :func:`describe_log` (the few numbers the plan needs),
+Map (per log, on the worker that reads it): :func:`condition_log` (read and condition one log,
+with the cutoff of the period's first log as ``ident fit`` chooses it; the data set stays in that
+worker's memory), :func:`describe_log` (the few numbers the plan needs),
 :func:`choice_parts_of` (the held-out folds for the friction-term choice) and
 :func:`compress_stretch` (one stretch of a segment, a whole number of time blocks, into per-joint
 triangles). Reduce (per arm and period): :func:`choose_period_terms` and :func:`fit_period`.
@@ -29,7 +29,7 @@ import numpy as np
 from ..arm.base import base_parameters
 from ..arm.loader import load_robot
 from ..arm.model import DRY_FRICTION_TERMS, parse_terms
-from ..data.load import first_file_cutoff, load_dataset
+from ..data.load import load_dataset
 from ..errors import first_line
 from ..estimation.blocks import MAX_BLOCKS, block_length, block_ranges
 from ..estimation.compress import Compressor, add_segment, iter_segments
@@ -81,32 +81,24 @@ def base_of(description: str, terms):
     return _BASES[key]
 
 
-def period_cutoff(jobs: list[LogJob]):
-    """(cutoff Hz or None, rule dict, failures) for a period: taken from the first log that reads,
-    as :func:`ident.data.load.load_dataset` takes it from its first file."""
-    failed = []
-    for job in jobs:
-        try:
-            cut, info = first_file_cutoff(job.log, robot_of(job.description), job.profile, job.options)
-        except Exception as exc:  # noqa: BLE001 - any failure of one log is reported, not fatal
-            failed.append(Failed(job.log, first_line(exc)))
-            continue
-        if cut is not None:
-            return cut, info, failed
-    return None, None, failed
+def condition_log(job: LogJob, first=None):
+    """Read and condition one log: a Dataset, or :class:`Failed`.
 
-
-def condition_log(job: LogJob, cutoff):
-    """Read and condition one log with the period's cutoff: a Dataset, or :class:`Failed`."""
-    if isinstance(cutoff, tuple):
-        cutoff = cutoff[0]
+    first : None for the period's first log (its cutoff is chosen from its own data, or given in
+    the options, as :func:`ident.data.load.load_dataset` chooses it on its first file), else the
+    :func:`describe_log` summary of the first log, whose cutoff this log then uses (so the period
+    is conditioned as one ``load_dataset`` call over its logs). If the first log failed, this one
+    chooses its own.
+    """
+    cutoff = None
+    if isinstance(first, dict) and "failed" not in first:
+        cutoff = first.get("cutoff")
     try:
         opts = dict(job.options)
         if cutoff is not None:
             opts["cutoff"] = cutoff
-        # no cutoff: no log of the period read; loading this one says why
         return load_dataset([job.log], robot_of(job.description), job.profile, opts)
-    except Exception as exc:  # noqa: BLE001
+    except Exception as exc:  # noqa: BLE001 - any failure of one log is reported, not fatal
         return Failed(job.log, first_line(exc))
 
 
@@ -235,6 +227,15 @@ def fit_period(description: str, terms, method: str, fit_options: dict, block: i
         res = fit_compressed(comp, method, **fit_options)
     res.term_choice = choice
     return PeriodFit(res, logs, warnings, int(block), options)
+
+
+def fold_and_fit(data, description: str, terms, state, segment: int, start: int, stop: int, ranges, dt, block: int,
+                 keep_blocks: bool, method: str, fit_options: dict, sources: list[str], logs: list[str], warnings: list[str],
+                 options: dict) -> PeriodFit:
+    """The exact mode's last stretch of a period and its fit in one task (:func:`continue_compression`
+    then :func:`fit_period`), so a one-log period costs three tasks: condition, describe, this."""
+    comp = continue_compression(data, description, terms, state, segment, start, stop, ranges, dt, block, keep_blocks)
+    return fit_period(description, terms, method, fit_options, block, sources, logs, warnings, options, comp)
 
 
 def parse_fixed_terms(text) -> tuple[str, ...]:
