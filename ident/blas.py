@@ -10,12 +10,27 @@ from __future__ import annotations
 
 import contextlib
 import ctypes
+import sys
 
 _BLAS_SYMBOLS = ("openblas", "scipy_openblas", "scipy_openblas64_", "openblas64_")
 
 
+_CACHE: dict = {}
+
+
 def _openblas_handles() -> list:
-    """(get, set) thread-count functions of every OpenBLAS loaded in this process (Linux)."""
+    """(get, set) thread-count functions of every OpenBLAS loaded in this process (Linux).
+
+    Cached until more modules are imported: reading the process map costs milliseconds, and a
+    new BLAS arrives only with an import."""
+    key = len(sys.modules)
+    if key not in _CACHE:
+        _CACHE.clear()
+        _CACHE[key] = _scan_handles()
+    return _CACHE[key]
+
+
+def _scan_handles() -> list:
     try:
         with open("/proc/self/maps") as fh:
             paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and line.split()[-1].startswith("/")}

@@ -11,6 +11,8 @@ degrees of freedom.
 
 from __future__ import annotations
 
+import dataclasses
+
 from pathlib import Path
 
 import numpy as np
@@ -19,6 +21,8 @@ import pytest
 from test_estimate import sine_trajectory
 
 import ident
+from ident.arm.dynamics import coulomb_levels
+from ident.arm.model import DRY_FRICTION_TERMS
 from ident.arm.parameters import parameter_set_from_vector
 from ident.arm.spatial import to_vector
 from ident.estimation.blocks import CUTOFF_PERIODS, MIN_BLOCKS, BlockStore, block_length, block_ranges
@@ -120,6 +124,26 @@ def test_link_masses_where_identifiable(tmp_path):
     assert all(s is None for _, s in r4.link_masses) and "one realization" in r4.summary()
 
 
+def test_dry_friction_level_is_the_sum_of_the_dry_terms_with_its_std():
+    robot, (q, dq, ddq, tau), rng = _white_case(1500, seed=5)
+    tau = tau + 0.05 * rng.standard_normal(tau.shape)
+    plain = ident.fit(robot, (q, dq, ddq, tau), "ols", TERMS)
+    for j, (plus, minus) in enumerate(plain.dry_friction):
+        k = plain.names.index(f"{robot.joint_names[j]}.fc")
+        assert plus[0] == pytest.approx(plain.beta[k]) and minus[0] == pytest.approx(plain.beta[k])
+        assert plus[1] == pytest.approx(plain.std[k], rel=1e-9)
+    # Directional and low-speed terms: the levels are those of the realization's friction law
+    # (f(+v) - fv v at a speed where tanh has saturated), and still determined by the data
+    # although fc, fcp and fcn are regrouped (their columns are linearly dependent).
+    rich = ident.fit(robot, (q, dq, ddq, tau), "ols", ("fv", "fc", "ia", "fcp", "fcn", "fl1"))
+    up, down = coulomb_levels(rich.joint_params)
+    levels = rich.dry_friction
+    np.testing.assert_allclose([p[0] for p, _ in levels], up, rtol=1e-9)
+    np.testing.assert_allclose([m[0] for _, m in levels], down, rtol=1e-9)
+    assert all(p[1] is not None and np.isfinite(p[1]) and m[1] is not None for p, m in levels)
+    assert "dry friction +" in rich.summary() and "dry_friction_at_speed" in rich.diagnostics()
+
+
 # ---------------------------------------------------------------------------------------------
 # Monte Carlo with the closed-loop simulator
 
@@ -156,7 +180,7 @@ def monte_carlo(tmp_path_factory):
     ref = _reference(robot)
     opts = {"period": PERIOD, "harmonics": HARMONICS}  # what --excitation gives: the excitation's own facts
     tmp = tmp_path_factory.mktemp("mc")
-    z_blocks, z_classic, z_none, z_load = [], [], [], []
+    z_blocks, z_classic, z_none, z_load, z_levels, z_levels_classic, chosen = [], [], [], [], [], [], []
     for run in range(RUNS):
         settings = ident.SimulationSettings(log_rate=LOG_RATE, substeps=4, torque_noise=TORQUE_NOISE, encoder_counts=2**16, seed=1000 + run)
         logs = {}
@@ -165,38 +189,55 @@ def monte_carlo(tmp_path_factory):
             path = tmp / f"{name}.parquet"
             pd.DataFrame(sim.columns()).to_parquet(path)
             logs[name] = ident.load_dataset([path], robot=robot, options=opts)
-        # default conditioning and method; the terms fixed to the simulated friction law's own
-        # (with the data-chosen low-speed shape, fc and tanh(v/0.005) are nearly collinear at a
-        # 50 Hz log and their individual intervals cover worse: measured 0.89 overall, fc 0.04-0.36)
-        res = ident.fit(robot, logs["plain"], terms=TERMS)
+        # default options throughout: conditioning, method and the friction terms chosen from the data
+        res = ident.fit(robot, logs["plain"])
+        chosen.append(res.terms)
         # the truth in the chosen model's own base parameters (terms it does not have are zero)
         beta_true = ident.base_parameters(robot, res.terms).project(truth.vector(res.terms))
-        z_blocks.append((res.beta - beta_true) / res.std)
-        z_classic.append((res.beta - beta_true) / res.std_classic)
+        # The individual dry-friction shape coefficients have no truth of their own: with measured
+        # (noisy, filtered) velocities the plant's sharp step is shared between fc and the
+        # low-speed shapes. The physical quantity is the dry-friction level at speed (their sum),
+        # judged below with its own std; everything else is judged coefficient by coefficient.
+        own = np.array([name.rsplit(".", 1)[-1] not in DRY_FRICTION_TERMS for name in res.names])
+        z_blocks.append(((res.beta - beta_true) / res.std)[own])
+        z_classic.append(((res.beta - beta_true) / res.std_classic)[own])
+        for j, (plus, minus) in enumerate(res.dry_friction):
+            z_levels += [(plus[0] - jp["fc"][j]) / plus[1], (minus[0] - jp["fc"][j]) / minus[1]]
+        for j, (plus, minus) in enumerate(dataclasses.replace(res, cov=res.cov_classic).dry_friction):
+            z_levels_classic += [(plus[0] - jp["fc"][j]) / plus[1], (minus[0] - jp["fc"][j]) / minus[1]]
         # Payload on the true arm: none in the plain log, 1.5 kg in the other (same noise seed).
         none = ident.identify_payload(robot, truth, logs["plain"])
         load = ident.identify_payload(robot, truth, logs["load"])
         z_none.append((none.params_ls[0] / none.mass_std, none.significant()))
         z_load.append((load.params_ls[0] - PAYLOAD[0]) / load.mass_std)
-    out = dict(names=res.names, z_blocks=np.concatenate(z_blocks), z_classic=np.concatenate(z_classic), z_none=z_none,
+    out = dict(names=res.names, z_blocks=np.concatenate(z_blocks), z_levels=np.array(z_levels), z_levels_classic=np.array(z_levels_classic), chosen=chosen, z_classic=np.concatenate(z_classic), z_none=z_none,
                z_load=np.array(z_load), blocks=res.uncertainty.get("blocks"), payload_blocks=load.uncertainty.get("blocks"))
     print(f"\nMonte Carlo, {RUNS} runs: 2-sigma coverage blocks {np.mean(np.abs(out['z_blocks']) < 2):.3f}, "
-          f"classic {np.mean(np.abs(out['z_classic']) < 2):.3f}; "
+          f"dry-friction levels {np.mean(np.abs(out['z_levels']) < 2):.3f}, "
+          f"classic {np.mean(np.abs(out['z_classic']) < 2):.3f} and {np.mean(np.abs(out['z_levels_classic']) < 2):.3f}; "
           f"no-payload significant {np.mean([s for _, s in z_none]):.3f}; payload within 2 sigma {np.mean(np.abs(out['z_load']) < 2):.3f}")
     return out
 
 
 def test_block_std_covers_the_truth(monte_carlo):
-    z = monte_carlo["z_blocks"]
+    z = np.concatenate([monte_carlo["z_blocks"], monte_carlo["z_levels"]])
     assert z.size >= RUNS * len(monte_carlo["names"]) // 2 and monte_carlo["blocks"] >= MIN_BLOCKS
     coverage = np.mean(np.abs(z) < 2)
     assert 0.90 <= coverage <= 0.98, coverage
+    # the dry-friction level at speed on its own, too
+    assert 0.90 <= np.mean(np.abs(monte_carlo["z_levels"]) < 2) <= 0.98
+    # the default really chose (nearly always a low-speed shape here: the measured velocity's noise
+    # rounds the plant's step as seen by the model), so this is the default's coverage
+    assert any(len(t) > len(TERMS) for t in monte_carlo["chosen"])
 
 
 def test_classic_std_fails_the_same_check(monte_carlo):
-    cov_classic = np.mean(np.abs(monte_carlo["z_classic"]) < 2)
-    cov_blocks = np.mean(np.abs(monte_carlo["z_blocks"]) < 2)
-    assert cov_classic < 0.85 and cov_classic < cov_blocks - 0.1
+    cov_classic = np.mean(np.abs(np.concatenate([monte_carlo["z_classic"], monte_carlo["z_levels_classic"]])) < 2)
+    cov_blocks = np.mean(np.abs(np.concatenate([monte_carlo["z_blocks"], monte_carlo["z_levels"]])) < 2)
+    # measured: 0.87 against 0.97 (the classic formula misses the 90 % floor; worst on the
+    # dry-friction levels, 0.81, where the filtered residual is most correlated)
+    assert cov_classic < 0.90 and cov_classic < cov_blocks - 0.05
+    assert np.mean(np.abs(monte_carlo["z_levels_classic"]) < 2) < 0.85
 
 
 def test_payload_significance_and_coverage(monte_carlo):

@@ -8,7 +8,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..arm.base import BaseParameters
-from ..arm.model import Robot
+from ..arm.dynamics import term_columns
+from ..arm.model import DRY_FRICTION_TERMS, Robot
 from ..arm.parameters import PHYSICAL_TOL, BaseTable, ParameterSet, parameter_set_from_vector
 from ..arm.spatial import from_vector, pseudo_inertia
 from ..errors import IdentError
@@ -18,6 +19,10 @@ METHODS = ("ols", "wls", "consistent")
 
 #: Default joint terms (the CLI's default too).
 DEFAULT_TERMS = ("fv", "fc", "ia")
+
+
+#: Speed (rad/s or m/s) at which the dry-friction level is read: every low-speed shape has saturated.
+LEVEL_SPEED = 1.0
 
 
 #: Relative standard deviation (%) above which a base parameter is flagged (common practice: 10 %).
@@ -159,25 +164,51 @@ class FitResult:
         ev = np.linalg.eigvalsh(pseudo_inertia(self.inertial))
         return ev[:, 0] >= -PHYSICAL_TOL * np.maximum(np.abs(ev[:, -1]), 1e-300)
 
+    def _combinations(self, E: np.ndarray) -> list[tuple[float, float | None]]:
+        """Values and std of the linear functions e_k^T pi of the full parameters (columns of E,
+        (p, k)): the std where the function is one of the base parameters (e_k = P^T a_k, so
+        e_k^T pi = a_k^T beta), None where only this realization fixes it."""
+        P = self.base.projection
+        a, *_ = np.linalg.lstsq(P.T, E, rcond=None)
+        miss = np.linalg.norm(P.T @ a - E, axis=0) / np.maximum(np.linalg.norm(E, axis=0), 1e-300)
+        out = []
+        for k in range(E.shape[1]):
+            if miss[k] < 1e-8:
+                var = float(a[:, k] @ self.cov @ a[:, k])
+                out.append((float(a[:, k] @ self.beta), float(np.sqrt(max(var, 0.0))) if np.isfinite(var) else float("nan")))
+            else:
+                out.append((float(E[:, k] @ self.full), None))
+        return out
+
     @property
     def link_masses(self) -> list[tuple[float, float | None]]:
         """Per body (mass kg, std kg or None): the std where the data determine the mass (it is a
         combination of the base parameters, m_i = a^T beta), None where only this realization
         fixes it (the mass is not a function of the base parameters)."""
         n = self.robot.n
-        P = self.base.projection
-        E = np.zeros((P.shape[1], n))
+        E = np.zeros((self.full.size, n))
         E[10 * np.arange(n), np.arange(n)] = 1.0
-        a, *_ = np.linalg.lstsq(P.T, E, rcond=None)
-        miss = np.linalg.norm(P.T @ a - E, axis=0)
-        out = []
-        for i in range(n):
-            if miss[i] < 1e-8:
-                var = float(a[:, i] @ self.cov @ a[:, i])
-                out.append((float(a[:, i] @ self.beta), float(np.sqrt(max(var, 0.0))) if np.isfinite(var) else float("nan")))
-            else:
-                out.append((float(self.inertial[i, 0]), None))
-        return out
+        return self._combinations(E)
+
+    @property
+    def dry_friction(self) -> list[tuple[tuple[float, float | None], tuple[float, float | None]]]:
+        """Per joint ((level, std), (level, std)) of the dry friction at speed, moving in the positive
+        and the negative direction (N m or N): the sum of the dry-friction terms once every
+        low-speed shape has saturated (at :data:`LEVEL_SPEED`), i.e. the Coulomb level. This, not
+        the individual shape coefficients, is the physical quantity when the model has several dry
+        terms: with measured velocities the shapes share the step between them.
+        std None where the data do not determine the level."""
+        n, nt = self.robot.n, len(self.terms)
+        dry = [k for k, c in enumerate(self.terms) if c in DRY_FRICTION_TERMS]
+        v = np.array([[LEVEL_SPEED], [-LEVEL_SPEED]])
+        cols = term_columns([self.terms[k] for k in dry], v, np.zeros_like(v))[:, 0, :]  # (2, d)
+        E = np.zeros((self.full.size, 2 * n))
+        for j in range(n):
+            for t, k in enumerate(dry):
+                E[10 * n + j * nt + k, 2 * j] = cols[0, t]
+                E[10 * n + j * nt + k, 2 * j + 1] = -cols[1, t]
+        vals = self._combinations(E)
+        return [(vals[2 * j], vals[2 * j + 1]) for j in range(n)]
 
     def predict(self, q, dq, ddq) -> np.ndarray:
         """Model torque (N, n) of the full realization at (N, n) states."""
@@ -199,6 +230,10 @@ class FitResult:
             "uncertainty": {k: v for k, v in self.uncertainty.items() if k != "cov"},
             "link_mass_std": {b: (None if s is None else float(s)) for b, (_, s) in zip(self.robot.body_names, self.link_masses)},
         }
+        if any(c in DRY_FRICTION_TERMS for c in self.terms):
+            d["dry_friction_at_speed"] = {j: {"positive": [float(p[0]), None if p[1] is None else float(p[1])],
+                                              "negative": [float(m[0]), None if m[1] is None else float(m[1])]}
+                                          for j, (p, m) in zip(joints, self.dry_friction)}
         if self.solver:
             d["solver"] = dict(self.solver)
         return d
@@ -244,8 +279,8 @@ class FitResult:
 
         r = self.robot
         lines = [
-            f"Fit of {r.name}: method {self.method}, {self.samples} samples from {len(self.sources)} log(s), "
-            f"{self.base.n_base} base parameters (terms: {', '.join(self.terms) or 'none'})",
+            (f"Fit of {r.name}: method {self.method}, {self.samples} samples from {len(self.sources)} log(s), "
+             f"{self.base.n_base} base parameters (terms: {', '.join(self.terms) or 'none'})"),
             f"Condition number (column-scaled): {self.condition:.4g}",
             f"Standard deviations: {self.uncertainty_text()}",
         ]
@@ -276,6 +311,16 @@ class FitResult:
         ))
         lines.append("  (mass std: where the data determine the link mass; 'one realization': the data fix only "
                      "combinations of it with other parameters, the value is the realization's)")
+        if any(c in DRY_FRICTION_TERMS for c in self.terms):
+            lines.append("")
+            fmt = lambda x: "-" if x[1] is None else f"{x[1]:.3g}"
+            lines.append(format_table(
+                ["joint", "dry friction +", "std", "dry friction -", "std"],
+                [[j, f"{p[0]:.5g}", fmt(p), f"{m[0]:.5g}", fmt(m)] for j, (p, m) in zip(r.joint_names, self.dry_friction)],
+                "lrrrr",
+            ))
+            lines.append(f"  (dry friction at {LEVEL_SPEED:g} rad/s, every low-speed shape saturated: the Coulomb level in "
+                         "each direction; with several dry terms this, not each coefficient, is the physical quantity)")
         if self.unexcited:
             lines.append("")
             lines.append("Directions the data barely excite (set by the prior in a consistent fit):")

@@ -29,6 +29,7 @@ from ..arm.dynamics import inverse_dynamics
 from ..arm.model import DRY_FRICTION_TERMS, Robot
 from ..arm.parameters import PHYSICAL_TOL, ParameterSet
 from ..arm.spatial import check_physical, pseudo_inertia
+from ..data.segments import widen_slow
 from ..errors import DataError, IdentError
 from .collision import FALSE_ALARM, collision_thresholds
 from .noise import noise_floor
@@ -230,7 +231,7 @@ def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sour
         slow = np.asarray(slow, dtype=bool).reshape(N, n)
         if any(c in DRY_FRICTION_TERMS and np.any(ps.joint_params[c] != 0) for c in ps.terms):
             used &= ~slow
-            notes.append(f"left out {int(slow.sum())} joint samples within the velocity noise of zero (friction sign undefined)")
+            notes.append(f"left out {int(slow.sum())} joint samples within the velocity noise of zero or the filter's reach of it (friction sign undefined)")
     if stuck is not None:
         stuck = np.asarray(stuck, dtype=bool).reshape(N, n)
         if stuck.any():
@@ -282,14 +283,17 @@ def validate(robot: Robot, ps: ParameterSet, t, q, dq, ddq, tau, slow=None, sour
 
 
 def validate_dataset(robot: Robot, ps: ParameterSet, data, raw=None, false_alarm: float | None = FALSE_ALARM) -> Validation:
-    """:func:`validate` on an :class:`ident.data.dataset.Dataset`: its ``slow`` (and, where the
-    segments carry them, ``stuck``) flags are honoured and the noise floor is estimated from it,
+    """:func:`validate` on an :class:`ident.data.dataset.Dataset`: its ``slow`` flags, widened by
+    :data:`ident.data.segments.SIGN_SPREAD` cutoff periods (:func:`ident.data.segments.widen_slow`),
+    and, where the segments carry them, its ``stuck`` flags are honoured and the noise floor is estimated from it,
     or from `raw` (the same logs read by :func:`ident.data.load.read_logs`) when the data set has
     no period-averaging estimate (see :func:`ident.handover.noise.noise_floor`)."""
-    slow = getattr(data, "slow", None)
+    info = getattr(data, "info", None) or {}
+    slow = None
+    if all(getattr(s, "slow", None) is not None for s in data.segments) and data.segments:
+        slow = np.concatenate([widen_slow(s.slow, s.dt, info.get("cutoff")) for s in data.segments], axis=0)
     stuck_parts = [getattr(s, "stuck", None) for s in data.segments]
     stuck = np.concatenate(stuck_parts, axis=0) if stuck_parts and all(p is not None for p in stuck_parts) else None
-    info = getattr(data, "info", None) or {}
     srcs = [f["path"] for f in info.get("files", [])]
     floor, how = noise_floor(data, raw)
     val = validate(robot, ps, data.t, data.q, data.dq, data.ddq, data.tau, slow, srcs, stuck, getattr(data, "dry", None), floor=floor,

@@ -169,6 +169,10 @@ def read_trajectory(path, robot: Robot) -> tuple[np.ndarray, np.ndarray, np.ndar
 
 
 
+#: Plant integration steps per compiled call, at most (about 0.1 s of work on a 7-joint arm).
+CHUNK_STEPS = 200_000
+
+
 @njit(cache=True, nogil=True)
 def _control_loop(k0, k1, q_ref, dq_ref, tau_ff, state, parent, jtype, Rf, pf, ax, a0, params, fv, fc, fo, ia,
                   eps, kp, kd, res, alpha, tau_max, T, substeps, log_every, q_log, dq_log, qt_log, tau_log, err2):
@@ -318,7 +322,10 @@ def simulate(robot: Robot, t, q_ref, dq_ref, ddq_ref, inertial, joint_params=Non
     args = kernel_arrays(robot)
     a0 = -robot.gravity
     sat = 0
-    step = max(1, int(rate))  # one simulated second between progress updates
+    # one simulated second between progress updates, fewer ticks when each has many substeps: the
+    # compiled loop cannot be interrupted, so a chunk is kept to about CHUNK_STEPS plant steps and
+    # Ctrl-C or SIGTERM is answered within a fraction of a second
+    step = max(1, min(int(rate), CHUNK_STEPS // max(int(s.substeps), 1)))
     with Progress(K, "simulate", enabled=progress) as bar:
         for k0 in range(0, K, step):
             k1 = min(K, k0 + step)
