@@ -102,7 +102,7 @@ def run(args) -> int:
     terms = terms_from_args(args)
     watch = tuple(c.strip() for c in args.watch.split(",") if c.strip())
     if not watch:
-        raise IdentError("--watch: give at least one friction parameter code (e.g. fv,fc)")
+        raise IdentError("--watch: give at least one friction parameter code (e.g. fv,dry_pos)")
     base = options_from_args(args)
     entries = _entries(args)
     groups = group_logs(entries, args.per)

@@ -33,8 +33,10 @@ from scipy import stats
 
 from ..errors import IdentError
 
-#: Friction parameters watched by default: viscous, Coulomb and its direction-dependent levels.
-WATCH = ("fv", "fc", "fcp", "fcn")
+#: Friction parameters watched by default: viscous friction and the dry-friction level at speed in
+#: each direction (the physical quantities whatever dry-friction terms each period's fit chose; the
+#: individual shape coefficients trade the step between them from one period to the next).
+WATCH = ("fv", "dry_pos", "dry_neg")
 #: Default alarm level, in combined standard deviations.
 ALARM = 4.0
 #: Default number of first periods that make an arm's baseline.

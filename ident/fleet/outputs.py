@@ -2,7 +2,9 @@
 
 Output folder (written at once, :func:`ident.fileio.atomic_folder`):
 
-* ``fleet.parquet`` : one row per arm, period and base parameter: ``arm``, ``description``,
+* ``fleet.parquet`` : one row per arm, period and base parameter, plus per joint the dry-friction
+  level at speed in each direction (``<joint>.dry_pos``, ``<joint>.dry_neg``:
+  ``FitResult.dry_friction``, with its std): ``arm``, ``description``,
   ``period``, ``period_start``, ``parameter``, ``estimate``, ``std``, ``samples``, ``logs``, and the
   fit's diagnostics ``method``, ``terms``, ``uncertainty`` (jackknife or classic), ``blocks``,
   ``condition``, ``residual_rms`` (RMS over the joints of each joint's residual), ``warnings``;
@@ -19,11 +21,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..arm.model import DRY_FRICTION_TERMS
 from ..arm.parameters import make_context
 from ..handover.paramfile import save_parameters
 from .catalog import Group
 
 TABLE = "fleet.parquet"
+
+#: Codes of the dry-friction levels at speed in the table (positive and negative direction):
+#: with several dry-friction terms these, not the individual coefficients, are what wear changes.
+DRY_LEVEL_CODES = ("dry_pos", "dry_neg")
 
 
 def results_table(groups: list[Group], fits: dict) -> pd.DataFrame:
@@ -38,7 +45,12 @@ def results_table(groups: list[Group], fits: dict) -> pd.DataFrame:
         diag = {"method": r.method, "terms": ",".join(r.terms), "uncertainty": r.uncertainty.get("method", "classic"),
                 "blocks": int(r.uncertainty.get("blocks", 0)), "condition": float(r.condition),
                 "residual_rms": float(np.sqrt(np.mean(np.asarray(r.residual_rms, float) ** 2))), "warnings": len(r.warnings) + len(pf.warnings)}
-        for name, est, s in zip(r.names, r.beta, std):
+        values = list(zip(r.names, r.beta, std))
+        if any(c in DRY_FRICTION_TERMS for c in r.terms):
+            for joint, levels in zip(r.robot.joint_names, r.dry_friction):
+                for code, (est, s) in zip(DRY_LEVEL_CODES, levels):
+                    values.append((f"{joint}.{code}", est, np.nan if s is None else s))
+        for name, est, s in values:
             rows.append(dict(arm=g.arm, description=g.description, period=g.period, period_start=g.start, parameter=name,
                              estimate=float(est), std=float(s), samples=int(r.samples), logs=len(pf.logs), **diag))
     cols = ["arm", "description", "period", "period_start", "parameter", "estimate", "std", "samples", "logs", "method", "terms",
