@@ -32,10 +32,10 @@ sys.path.insert(0, str(ROOT))
 for _var in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS"):
     os.environ[_var] = "1"
 
-from ident.data.options import excitation_options
-from ident.fleet.catalog import group_logs, read_catalog
-from ident.fleet.engine import FitSettings, dask_client, run_fleet, run_serial
-from ident.fleet.simulated import FleetSpec, make_fleet
+from ident.data.options import excitation_options  # noqa: E402 (thread settings first)
+from ident.fleet.catalog import group_logs, read_catalog  # noqa: E402 (thread settings first)
+from ident.fleet.engine import FitSettings, dask_client, run_fleet, run_serial  # noqa: E402 (thread settings first)
+from ident.fleet.simulated import FleetSpec, make_fleet  # noqa: E402 (thread settings first)
 
 QUAD4 = ROOT / "tests" / "data" / "quad4.urdf"
 

@@ -64,7 +64,8 @@ def add_parser(sub) -> None:
     d = p.add_argument_group("drift")
     d.add_argument("--alarm", type=float, default=ALARM, metavar="SIGMAS",
                    help=f"flag a joint whose friction moves more than this many combined standard deviations from its baseline (default {ALARM:g})")
-    d.add_argument("--baseline-periods", type=int, default=BASELINE_PERIODS, metavar="N", help=f"first periods that make each arm's baseline (default {BASELINE_PERIODS})")
+    d.add_argument("--baseline-periods", type=int, default=BASELINE_PERIODS, metavar="N",
+                   help=f"first periods that make each arm's baseline (default {BASELINE_PERIODS})")
     d.add_argument("--reference", metavar="PERIOD", help="a period label (e.g. 2026-W10) to use as every arm's baseline instead")
     d.add_argument("--fleet-alarm", type=float, default=FLEET_ALARM, metavar="SIGMAS",
                    help=f"flag an arm this far from the median of the other arms of its description, in their spread (default {FLEET_ALARM:g})")
