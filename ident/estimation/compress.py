@@ -547,26 +547,56 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
     if drop_slow is None:
         drop_slow = any(c in DRY_FRICTION_TERMS for c in comp.terms)
     segs = list(iter_segments(robot, data, with_slow=True))
-    total = sum(s.q.shape[0] for s in segs)
+    total = sum(segment_rows(s) for s in segs)
     dt, cutoff = data_timing(data)
     if block is None:
-        block = block_length([s.q.shape[0] for s in segs], dt, cutoff)
+        block = block_length([segment_rows(s) for s in segs], dt, cutoff)
     elif block < 1:
         raise IdentError(f"block: must be a positive number of samples, got {block}")
     comp.block = int(block)
     done = 0
     for seg in segs:
         cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
-        slow = seg.slow
-        if slow is None and slow_velocity:
-            slow = np.abs(np.asarray(seg.dq, dtype=float)) < slow_velocity
-        keep = ~np.asarray(slow, dtype=bool) if (drop_slow and slow is not None) else None
-        if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
-            keep = ~seg.stuck if keep is None else keep & ~seg.stuck
-        signals = None if seg.dry is None else term_columns(comp.terms, seg.dq, seg.ddq, seg.dry)
-        comp.add(seg.q, seg.dq, seg.ddq, seg.tau, source=seg.source, progress=cb, keep=keep, term_signals=signals, dt=dt)
-        done += seg.q.shape[0]
+        if stored_segment(seg):
+            # a segment kept on disk: read and fold one time block at a time, the same blocks
+            # (and so the same triangles) as the whole segment in memory gives
+            N = seg.n_samples
+            ranges = block_ranges(N, comp.block) if comp.blocks is not None else [(a, min(N, a + STREAM_ROWS)) for a in range(0, N, STREAM_ROWS)]
+            for i, (a, b) in enumerate(ranges):
+                _add_segment(comp, seg.read(a, b), seg.source, drop_slow, slow_velocity, dt, b - a,
+                             None if cb is None else (lambda k, a0=a, f=cb: f(a0 + k)))
+                if i:
+                    comp.sources.pop()  # one log, one source entry
+        else:
+            _add_segment(comp, seg, seg.source, drop_slow, slow_velocity, dt, None, cb)
+        done += segment_rows(seg)
     return comp
+
+
+#: Samples read at a time from a segment kept on disk when no time blocks are kept.
+STREAM_ROWS = 1 << 16
+
+
+def _add_segment(comp: Compressor, seg, source: str, drop_slow: bool, slow_velocity, dt, block, progress) -> None:
+    slow = seg.slow
+    if slow is None and slow_velocity:
+        slow = np.abs(np.asarray(seg.dq, dtype=float)) < slow_velocity
+    keep = ~np.asarray(slow, dtype=bool) if (drop_slow and slow is not None) else None
+    if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
+        keep = ~seg.stuck if keep is None else keep & ~seg.stuck
+    signals = None if seg.dry is None else term_columns(comp.terms, seg.dq, seg.ddq, seg.dry)
+    comp.add(seg.q, seg.dq, seg.ddq, seg.tau, source=source, progress=progress, keep=keep, term_signals=signals, dt=dt, block=block)
+
+
+def stored_segment(seg) -> bool:
+    """True for a segment that keeps its arrays on disk and reads them by rows
+    (:class:`ident.data.spill.StoredSegment`: ``read(a, b)``, ``take(rows)``)."""
+    return hasattr(seg, "read") and hasattr(seg, "take") and hasattr(seg, "n_samples")
+
+
+def segment_rows(seg) -> int:
+    """Samples of a segment from :func:`iter_segments` (without reading a stored one)."""
+    return int(seg.n_samples) if stored_segment(seg) else int(seg.q.shape[0])
 
 
 @dataclass
@@ -589,7 +619,7 @@ def data_timing(data) -> tuple[float | None, float | None]:
     conditioned with), or Nones for arrays."""
     if not hasattr(data, "segments"):
         return None, None
-    steps = [s.dt for s in data.segments if getattr(s, "t", None) is not None and s.n_samples > 1]
+    steps = [s.dt for s in data.segments if (stored_segment(s) or getattr(s, "t", None) is not None) and s.n_samples > 1]
     dt = float(np.median(steps)) if steps else None
     cutoff = getattr(data, "info", {}).get("cutoff")
     return dt, (float(cutoff) if cutoff else None)
@@ -599,7 +629,9 @@ def iter_segments(robot: Robot, data, with_slow: bool = False):
     """Yield the segments of a data set, an array tuple ``(q, dq, ddq, tau)``, or a list of those.
 
     Without `with_slow`: ``(source, q, dq, ddq, tau)`` tuples. With it: :class:`SegmentData`
-    records that also carry the segment's slow and stuck flags and filtered dry-friction signals.
+    records that also carry the segment's slow and stuck flags and filtered dry-friction signals,
+    or, for a segment kept on disk, that segment itself (same fields; :func:`stored_segment`),
+    so the caller can read it by rows.
     """
     for item in _segments(robot, data):
         yield item if with_slow else (item.source, item.q, item.dq, item.ddq, item.tau)
@@ -611,6 +643,9 @@ def _segments(robot: Robot, data):
         if names is not None and list(names) != list(robot.joint_names):
             raise DataError(f"data set joints {list(names)} do not match the model's joints {list(robot.joint_names)} (load it with the robot)")
         for k, seg in enumerate(data.segments):
+            if stored_segment(seg):
+                yield seg  # conditioned on the block path: read by rows where it is used
+                continue
             if seg.dq is None or seg.ddq is None:
                 raise DataError(f"{seg.source}: segment has no velocities/accelerations (load the logs with load_dataset, which conditions them)")
             yield SegmentData(str(getattr(seg, "source", "") or f"segment {k}"), seg.q, seg.dq, seg.ddq, seg.tau,

@@ -23,7 +23,7 @@ from ..arm.dynamics import term_columns
 from ..arm.model import Robot, parse_terms
 from ..blas import single_thread_blas
 from ..errors import DataError, NumericalError
-from .compress import Compressor, iter_segments
+from .compress import Compressor, iter_segments, segment_rows, stored_segment
 from .least_squares import solve_reduced
 
 #: The friction models tried, simplest first.
@@ -63,26 +63,32 @@ def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, 
     if not cands:
         raise DataError("term choice: no candidate term sets")
     segs = list(iter_segments(robot, data, with_slow=True))
-    total = sum(s.q.shape[0] for s in segs)
+    total = sum(segment_rows(s) for s in segs)
     if total == 0:
         raise DataError("term choice: no samples")
     stride = max(1, int(np.ceil(total / max_rows)))
+    # the strided samples of each segment, read once (a segment on disk is read by rows)
+    subs = []
+    for seg in segs:
+        idx = np.arange(0, segment_rows(seg), stride)
+        if idx.size < folds:
+            continue
+        part = seg.take(idx) if stored_segment(seg) else None
+        pick = (lambda x: x) if part is not None else (lambda x, i=idx: None if x is None else x[i])
+        src = part if part is not None else seg
+        subs.append((seg.source, pick(src.q), pick(src.dq), pick(src.ddq), pick(src.tau), pick(src.stuck), pick(src.dry)))
     scores = {}
     sigma2 = None
     with single_thread_blas():
         for terms in cands:
             bp = base_parameters(robot, terms)
             comps = [Compressor(robot, terms, bp, keep_blocks=False) for _ in range(folds)]
-            for seg in segs:
-                m = seg.q.shape[0]
-                idx = np.arange(0, m, stride)
-                if idx.size < folds:
-                    continue
-                keep = None if seg.stuck is None else ~seg.stuck[idx]
-                cols = None if seg.dry is None else term_columns(terms, seg.dq[idx], seg.ddq[idx], seg.dry[idx])
-                for f, part in enumerate(np.array_split(np.arange(idx.size), folds)):
+            for source, q, dq, ddq, tau, stuck, dry in subs:
+                keep = None if stuck is None else ~stuck
+                cols = None if dry is None else term_columns(terms, dq, ddq, dry)
+                for f, part in enumerate(np.array_split(np.arange(q.shape[0]), folds)):
                     sl = part
-                    comps[f].add(seg.q[idx][sl], seg.dq[idx][sl], seg.ddq[idx][sl], seg.tau[idx][sl], source=seg.source,
+                    comps[f].add(q[sl], dq[sl], ddq[sl], tau[sl], source=source,
                                  keep=None if keep is None else keep[sl], term_signals=None if cols is None else cols[sl])
             if any(c.samples == 0 for c in comps):
                 raise DataError("term choice: too few samples for the held-out folds")
