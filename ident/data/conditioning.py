@@ -48,6 +48,10 @@ SIGNAL_TO_NOISE = 10.0
 SIGN_CUTOFF_RATIO = 4.0
 
 
+#: Above this many position values the spectra are taken joint by joint (same to rounding, 1e-14).
+WELCH_VALUES = 1 << 21
+
+
 def cutoff_from_data(q: np.ndarray, fs: float, lowest: float | None = None) -> tuple[float, dict]:
     """Low-pass cutoff (Hz) chosen from logged positions q (m, n) sampled at `fs` (Hz).
 
@@ -73,9 +77,14 @@ def cutoff_from_data(q: np.ndarray, fs: float, lowest: float | None = None) -> t
     m = q.shape[0]
     if m < 64:
         return float(np.clip(lo, 0.0, hi)), dict(rule="too few samples for a spectrum: lowest bound", candidate=[], sigma=[])
-    d2 = np.diff(q, 2, axis=0)
-    nper = int(min(d2.shape[0], 2 ** int(np.ceil(np.log2(max(64.0, 2.0 * fs))))))
-    f, P = signal.welch(d2, fs=fs, nperseg=nper, axis=0, detrend="linear")
+    nper = int(min(m - 2, 2 ** int(np.ceil(np.log2(max(64.0, 2.0 * fs))))))
+    if q.size <= WELCH_VALUES:
+        f, P = signal.welch(np.diff(q, 2, axis=0), fs=fs, nperseg=nper, axis=0, detrend="linear")
+    else:
+        # one joint at a time: Welch's segment copies of all joints at once take several times the log
+        spectra = [signal.welch(np.diff(q[:, k], 2), fs=fs, nperseg=nper, detrend="linear") for k in range(q.shape[1])]
+        f = spectra[0][0]
+        P = np.stack([p for _, p in spectra], axis=1)
     shape = (2.0 * np.sin(np.pi * f / fs)) ** 4 * 2.0 / fs
     top = f >= 0.8 * (0.5 * fs)
     band = (f > 0) & (f < hi)

@@ -32,10 +32,10 @@ CLIP_FRACTION = 0.999
 
 #: Statistics taken over a whole segment or file -- the nominal sample step, the velocity noise,
 #: the RMS velocity and the acceleration at reversals that set the slow zone, the data-chosen
-#: cutoff -- use at most its first this many samples (about 17 minutes at 1 kHz). Shorter logs
+#: cutoff -- use at most its first this many samples (about 8.7 minutes at 1 kHz). Shorter logs
 #: see no difference; a long log is then conditioned block by block with a bounded look-ahead
 #: and gives the same samples as conditioning it whole (:mod:`ident.data.streaming`).
-STAT_SAMPLES = 2**20
+STAT_SAMPLES = 2**19
 
 
 @dataclass

@@ -41,7 +41,10 @@ from .segments import CLIP_FRACTION, STAT_SAMPLES, JointPlan, condition_segment
 from .spill import Spill, StoredSegment
 
 #: Samples of a segment conditioned at a time (before the overlap is added).
-BLOCK = 1 << 18
+BLOCK = 1 << 17
+
+#: Rows read from the file at a time.
+READ_ROWS = 1 << 16
 
 #: Logs with more rows than this go by the block path when loaded (about 35 minutes at 1 kHz).
 STREAM_ROWS = 1 << 21
@@ -97,11 +100,13 @@ class _RawStore:
             if first is None:
                 first = float(t[0])
                 for c in CHANNELS:
-                    self.ch[c] = None if arrays[c] is None else spill.array((n,))
+                    # one file per joint: the statistics pass reads one joint's long stretch at a time
+                    self.ch[c] = None if arrays[c] is None else [spill.array(()) for _ in range(n)]
             self.t.append(t)
             for c in CHANNELS:
                 if arrays[c] is not None:
-                    self.ch[c].append(arrays[c])
+                    for k, f in enumerate(self.ch[c]):
+                        f.append(arrays[c][:, k])
             tau_max = np.maximum(tau_max, np.abs(arrays["tau"]).max(axis=0))
             q = arrays["q"]
             bmax, bmin = q.max(axis=0), q.min(axis=0)
@@ -113,8 +118,8 @@ class _RawStore:
             self.t_last = float(t[-1])
         self.t_first = first
         self.t.finish()
-        for f in self.ch.values():
-            if f is not None:
+        for fs in self.ch.values():
+            for f in fs or ():
                 f.finish()
         self._extremes = (tau_max, q_max, q_min, i_max, i_min)
 
@@ -142,8 +147,16 @@ class _RawStore:
             raise
 
     def read(self, name: str, a: int, b: int):
-        f = self.t if name == "t" else self.ch[name]
-        return None if f is None else f.read(a, b)
+        """Rows a..b-1 of "t" (m,) or of a channel (m, n), None when not logged."""
+        if name == "t":
+            return self.t.read(a, b)
+        if self.ch[name] is None:
+            return None
+        return np.stack([f.read(a, b) for f in self.ch[name]], axis=1)
+
+    def read_col(self, name: str, k: int, a: int, b: int):
+        """Rows a..b-1 of joint k's channel `name` (m,), None when not logged."""
+        return None if self.ch[name] is None else self.ch[name][k].read(a, b)
 
 
 def _pieces(raw: _RawStore, opts: LogOptions, warnings: list[str], counts: dict, block: int):
@@ -350,15 +363,13 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
     # slow-zone statistics from the first STAT_SAMPLES samples, filtered with the look-ahead they need
     S = min(m, STAT_SAMPLES)
     w = min(m, S + ov)
-    win = {c: raw.read(c, s, s + w) for c in ("q", "dq", "ddq")}
     zones = []
     for k in range(n):
-        _, v, v_sign, a_ = plan.signals(col(win["q"], k), col(win["dq"], k), col(win["ddq"], k))
+        _, v, v_sign, a_ = plan.signals(*(raw.read_col(c, k, s, s + w) for c in ("q", "dq", "ddq")))
         thr, still = plan.thresholds(v[:S], v_sign[:S], a_[:S])
         thresholds[k] = max(thresholds[k], thr)
         zones.append((thr, still))
         del v, v_sign, a_
-    del win
     start = out_files["t"].rows
     n_slow = n_stuck = 0
     for c0 in range(0, m, block):
@@ -420,7 +431,7 @@ def store_table(spill: Spill, path, fmt: str, robot, prof, block: int = BLOCK) -
     """Read, validate and store one CSV or Parquet log block by block (errors name file, column, row)."""
     from .tables import table_plan
 
-    raw = _RawStore(spill, table_plan(path, fmt, robot, prof), fmt, block)
+    raw = _RawStore(spill, table_plan(path, fmt, robot, prof), fmt, min(block, READ_ROWS))
     raw.check_plausible(robot)
     return raw
 

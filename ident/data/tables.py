@@ -156,6 +156,22 @@ def table_rows(path: Path, fmt: str) -> int | None:
         return None
 
 
+#: Bytes of CSV text parsed at a time on the block path.
+CSV_BLOCK_BYTES = 4 << 20
+
+
+def _parquet_blocks(path: Path, cols: list[str], rows: int):
+    """Record batches of at most `rows` rows, one row group read at a time (the batch iterator of
+    pyarrow keeps what it has read allocated, so memory would grow with the file)."""
+    import pyarrow.parquet as pq
+
+    pf = pq.ParquetFile(path, pre_buffer=False)
+    for g in range(pf.num_row_groups):
+        tbl = pf.read_row_group(g, columns=cols)
+        yield from tbl.to_batches(max_chunksize=rows)
+        del tbl
+
+
 def iter_table_blocks(plan: TablePlan, fmt: str, rows: int):
     """Yield ``(offset, t, arrays)`` for consecutive blocks of about `rows` data rows of a table,
     validated as :meth:`TablePlan.convert` does (errors name file, column and data row); times
@@ -165,15 +181,13 @@ def iter_table_blocks(plan: TablePlan, fmt: str, rows: int):
     cols = plan.columns
     try:
         if fmt == "parquet":
-            import pyarrow.parquet as pq
-
-            batches = pq.ParquetFile(path).iter_batches(batch_size=int(rows), columns=cols)
+            batches = _parquet_blocks(path, cols, int(rows))
         else:
             import pyarrow as pa
             import pyarrow.csv as pacsv
 
-            # about `rows` rows a block: ~20 characters a cell
-            batches = pacsv.open_csv(path, read_options=pacsv.ReadOptions(block_size=int(max(1 << 20, rows * len(cols) * 20))),
+            # small parse blocks: the reader parses several ahead on its threads
+            batches = pacsv.open_csv(path, read_options=pacsv.ReadOptions(block_size=CSV_BLOCK_BYTES),
                                      convert_options=pacsv.ConvertOptions(include_columns=cols, column_types={c: pa.float64() for c in cols},
                                                                           strings_can_be_null=True))
     except Exception as exc:  # noqa: BLE001 - pyarrow's own error types: name the file, keep one line
@@ -189,9 +203,9 @@ def iter_table_blocks(plan: TablePlan, fmt: str, rows: int):
         except Exception as exc:  # noqa: BLE001 - as above, for a block further in
             detail = _diagnose_csv(path, cols) if fmt == "csv" else None
             raise DataError(detail or f"{path}: cannot read as {fmt} ({first_line(exc)})") from None
-        m = batch.num_rows
-        if m == 0:
+        if batch is None or batch.num_rows == 0:
             continue
+        m = batch.num_rows
         names = batch.schema.names
         t, arrays = plan.convert(lambda c, b=batch, nm=names: b.column(nm.index(c)), m, offset)
         if last is not None:
