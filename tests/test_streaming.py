@@ -181,3 +181,27 @@ def test_time_going_back_across_a_block_edge_names_the_row(tmp_path):
     df.to_parquet(pq, row_group_size=7_000)
     with pytest.raises(DataError, match=r"duplicate timestamp at data row 21001"):
         load_dataset(pq, options=OPTIONS, stream=True, block=7_000)
+
+
+def test_fit_command_takes_the_block_path_for_a_long_log(tmp_path, monkeypatch, small_stats):
+    from ident.cli import main
+
+    pq, _ = _log(tmp_path, gap=None)
+    urdf = _chain_urdf(tmp_path)
+    seen = []
+    real = load_mod.load_dataset
+
+    def spy(*a, **k):
+        ds = real(*a, **k)
+        seen.append(isinstance(ds.segments[0], StoredSegment))
+        return ds
+
+    monkeypatch.setattr("ident.commands.logs.load_dataset", spy)
+    monkeypatch.setattr(streaming, "STREAM_ROWS", 50_000)  # the log's 60 000 rows count as long
+    monkeypatch.setattr(streaming, "BLOCK", 4000)
+    out = tmp_path / "params.yaml"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        rc = main(["fit", str(urdf), str(pq), "--method", "wls", "--cutoff", "3", "--decimate", "7", "--quiet", "--out", str(out)])
+    assert rc == 0 and out.is_file()
+    assert seen == [True]

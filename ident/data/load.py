@@ -178,6 +178,8 @@ def _load(paths, robot, profile, options, condition: bool, stream_block: int | N
                                                        noise, thresholds, out_files, stream_block)
             else:
                 segments += condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise, thresholds)
+        if stream_block:
+            raw.close()
         del raw, pieces
     if condition and not segments:
         # the CLI shows this one line only, so it names the files and carries the warnings that explain it

@@ -62,6 +62,12 @@ class RowFile:
         if self._fh is not None and not self._fh.closed:
             self._fh.close()
 
+    def remove(self) -> None:
+        """Delete the file (the array is no longer needed)."""
+        self.finish()
+        self.path.unlink(missing_ok=True)
+        self.rows = 0
+
     def read(self, a: int, b: int) -> np.ndarray:
         """Rows a..b-1 as a new array (b - a,) + tail."""
         if self._fh is not None and not self._fh.closed:

@@ -76,6 +76,16 @@ def overlap(plan: JointPlan) -> int:
     return int(ov)
 
 
+def _release_arrow() -> None:
+    """Hand pyarrow's cached buffers back to the system (its allocator keeps what a read freed)."""
+    try:
+        import pyarrow as pa
+
+        pa.default_memory_pool().release_unused()
+    except (ImportError, AttributeError):  # pragma: no cover - older pyarrow
+        pass
+
+
 class _RawStore:
     """One file's validated raw SI channels on disk, with the reductions the plausibility check needs."""
 
@@ -91,6 +101,7 @@ class _RawStore:
         self.ch = {}
         self.rows = 0
         first = None
+        blocks = 0
         tau_max = np.zeros(n)
         q_max = np.full(n, -np.inf)
         q_min = np.full(n, np.inf)
@@ -116,6 +127,9 @@ class _RawStore:
             q_max, q_min = np.maximum(q_max, bmax), np.minimum(q_min, bmin)
             self.rows = offset + t.shape[0]
             self.t_last = float(t[-1])
+            blocks += 1
+            if blocks % 8 == 0:
+                _release_arrow()
         self.t_first = first
         self.t.finish()
         for fs in self.ch.values():
@@ -153,6 +167,13 @@ class _RawStore:
         if self.ch[name] is None:
             return None
         return np.stack([f.read(a, b) for f in self.ch[name]], axis=1)
+
+    def close(self) -> None:
+        """Delete the stored raw channels (after the file is conditioned)."""
+        self.t.remove()
+        for fs in self.ch.values():
+            for f in fs or ():
+                f.remove()
 
     def read_col(self, name: str, k: int, a: int, b: int):
         """Rows a..b-1 of joint k's channel `name` (m,), None when not logged."""
@@ -432,6 +453,7 @@ def store_table(spill: Spill, path, fmt: str, robot, prof, block: int = BLOCK) -
     from .tables import table_plan
 
     raw = _RawStore(spill, table_plan(path, fmt, robot, prof), fmt, min(block, READ_ROWS))
+    _release_arrow()
     raw.check_plausible(robot)
     return raw
 
