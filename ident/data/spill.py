@@ -91,9 +91,11 @@ class StoredSegment:
         self._start = int(start)
         self._n = int(n_samples)
         t = self._read("t", 0, self._n)
-        # the same sample step a Segment in memory reports: the median of all its steps
-        self._dt = float(np.median(np.diff(t))) if self._n > 1 else float("nan")
         self._t0, self._t1 = (float(t[0]), float(t[-1])) if self._n else (0.0, 0.0)
+        # the same sample step a Segment in memory reports: the median of all its steps
+        steps = np.diff(t)
+        del t
+        self._dt = float(np.median(steps, overwrite_input=True)) if self._n > 1 else float("nan")
 
     @property
     def n_samples(self) -> int:

@@ -366,11 +366,11 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
         keep = _subtract(base, dil)
     runs = [(a, b) for a, b in keep if b - a >= 3]
     counts["short"] += sum(b - a for a, b in keep) - sum(b - a for a, b in runs)
-    sel = [np.arange(a, b, opts.decimate) for a, b in runs]
+    sel = [len(range(a, b, opts.decimate)) for a, b in runs]  # samples out of each run
     if not sel:
         return []
-    counts["decimated"] += sum(b - a for a, b in runs) - sum(len(x) for x in sel)
-    allsel = np.concatenate(sel)
+    counts["decimated"] += sum(b - a for a, b in runs) - sum(sel)
+    allsel = np.concatenate([np.arange(a, b, opts.decimate) for a, b in runs])
     if opts.logged_velocity and raw.ch["dq"] is None:
         raise DataError(f"{raw.source}: logged_velocity is set but the log has no velocity")
     if opts.logged_acceleration and raw.ch["ddq"] is None:
@@ -436,9 +436,9 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
     if not opts.parallel_friction:
         files["dry"] = None
     segs, off = [], start
-    for x in sel:
-        segs.append((raw.source, files, off, len(x)))
-        off += len(x)
+    for k_run in sel:
+        segs.append((raw.source, files, off, k_run))
+        off += k_run
     return [StoredSegment(*a) for a in segs]
 
 
