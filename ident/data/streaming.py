@@ -101,13 +101,12 @@ class _RawStore:
         self.ch = {}
         self.rows = 0
         first = None
-        blocks = 0
         tau_max = np.zeros(n)
         q_max = np.full(n, -np.inf)
         q_min = np.full(n, np.inf)
         i_max = np.zeros(n, dtype=np.int64)
         i_min = np.zeros(n, dtype=np.int64)
-        for offset, t, arrays in iter_table_blocks(plan, fmt, block):
+        for blocks, (offset, t, arrays) in enumerate(iter_table_blocks(plan, fmt, block), start=1):
             if first is None:
                 first = float(t[0])
                 for c in CHANNELS:
@@ -127,7 +126,6 @@ class _RawStore:
             q_max, q_min = np.maximum(q_max, bmax), np.minimum(q_min, bmin)
             self.rows = offset + t.shape[0]
             self.t_last = float(t[-1])
-            blocks += 1
             if blocks % 8 == 0:
                 _release_arrow()
         self.t_first = first

@@ -157,7 +157,7 @@ def table_rows(path: Path, fmt: str) -> int | None:
 
 
 #: Bytes of CSV text parsed at a time on the block path.
-CSV_BLOCK_BYTES = 4 << 20
+CSV_BLOCK_BYTES = 2 << 20
 
 
 def _parquet_blocks(path: Path, cols: list[str], rows: int):
