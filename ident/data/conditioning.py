@@ -48,6 +48,10 @@ SIGNAL_TO_NOISE = 10.0
 SIGN_CUTOFF_RATIO = 4.0
 
 
+#: Above this many position values the spectra are taken joint by joint (same to rounding, 1e-14).
+WELCH_VALUES = 1 << 21
+
+
 def cutoff_from_data(q: np.ndarray, fs: float, lowest: float | None = None) -> tuple[float, dict]:
     """Low-pass cutoff (Hz) chosen from logged positions q (m, n) sampled at `fs` (Hz).
 
@@ -73,9 +77,14 @@ def cutoff_from_data(q: np.ndarray, fs: float, lowest: float | None = None) -> t
     m = q.shape[0]
     if m < 64:
         return float(np.clip(lo, 0.0, hi)), dict(rule="too few samples for a spectrum: lowest bound", candidate=[], sigma=[])
-    d2 = np.diff(q, 2, axis=0)
-    nper = int(min(d2.shape[0], 2 ** int(np.ceil(np.log2(max(64.0, 2.0 * fs))))))
-    f, P = signal.welch(d2, fs=fs, nperseg=nper, axis=0, detrend="linear")
+    nper = int(min(m - 2, 2 ** int(np.ceil(np.log2(max(64.0, 2.0 * fs))))))
+    if q.size <= WELCH_VALUES:
+        f, P = signal.welch(np.diff(q, 2, axis=0), fs=fs, nperseg=nper, axis=0, detrend="linear")
+    else:
+        # one joint at a time: Welch's segment copies of all joints at once take several times the log
+        spectra = [signal.welch(np.diff(q[:, k], 2), fs=fs, nperseg=nper, detrend="linear") for k in range(q.shape[1])]
+        f = spectra[0][0]
+        P = np.stack([p for _, p in spectra], axis=1)
     shape = (2.0 * np.sin(np.pi * f / fs)) ** 4 * 2.0 / fs
     top = f >= 0.8 * (0.5 * fs)
     band = (f > 0) & (f < hi)
@@ -119,7 +128,8 @@ def min_filter_samples(order: int = FILTER_ORDER) -> int:
     return 3 * (2 * ((int(order) + 1) // 2) + 1) + 1
 
 
-def lowpass(x: np.ndarray, fs: float, cutoff: float, order: int = FILTER_ORDER, periodic: bool = False) -> np.ndarray:
+def lowpass(x: np.ndarray, fs: float, cutoff: float, order: int = FILTER_ORDER, periodic: bool = False,
+            padlen: int | None = None) -> np.ndarray:
     """Zero-phase Butterworth low-pass (forward-backward, ``scipy.signal.sosfiltfilt``) along axis 0.
 
     Parameters
@@ -128,6 +138,8 @@ def lowpass(x: np.ndarray, fs: float, cutoff: float, order: int = FILTER_ORDER, 
     cutoff : -3 dB frequency of the one-way filter, Hz (the two passes give -6 dB there).
     order : Butterworth order of the one-way filter.
     periodic : treat `x` as exactly one period (wrap-around), as after :func:`period_average`.
+    padlen : edge padding in samples (default :func:`pad_length` of `x`); a block of a longer
+        segment passes the segment's own, so its ends are treated as the whole segment's are.
 
     Returns
     -------
@@ -142,7 +154,20 @@ def lowpass(x: np.ndarray, fs: float, cutoff: float, order: int = FILTER_ORDER, 
         return np.ascontiguousarray(signal.sosfiltfilt(sos, tiled, axis=0)[m : 2 * m])
     if m < min_filter_samples(order):
         raise DataError(f"too few samples ({m}) to filter; need at least {min_filter_samples(order)}")
-    return signal.sosfiltfilt(sos, x, axis=0, padtype="odd", padlen=pad_length(m, fs, cutoff))
+    pad = pad_length(m, fs, cutoff) if padlen is None else int(min(m - 1, padlen))
+    return signal.sosfiltfilt(sos, x, axis=0, padtype="odd", padlen=pad)
+
+
+def settle_samples(fs: float, cutoff: float, order: int = FILTER_ORDER, tol: float = 1e-16) -> int:
+    """Samples after which the start-up transient of :func:`lowpass` has decayed below `tol` of
+    its size: the slowest pole radius r of the Butterworth filter gives ``log(tol) / log(r)``.
+
+    Overlapping blocks by this much (plus what the derivatives and flags add) makes block-wise
+    filtering equal to filtering the whole segment to about `tol` relative.
+    """
+    sos = lowpass_sos(fs, cutoff, order)
+    r = max(float(np.max(np.abs(np.roots(sec[3:])))) for sec in sos)
+    return int(np.ceil(np.log(tol) / np.log(min(r, 1.0 - 1e-12)))) + 1
 
 
 def pad_length(m: int, fs: float, cutoff: float) -> int:

@@ -16,12 +16,15 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import DataError
+from . import streaming
 from .conditioning import CUTOFF_RATIO, cutoff_from_data
 from .dataset import CHANNELS, Dataset, Segment
 from .options import LogOptions
 from .profile import LogProfile, load_profile
-from .readers import read_log
-from .segments import condition_segment, uniform_pieces
+from .readers import log_format, read_log
+from .segments import STAT_SAMPLES, condition_segment, uniform_pieces
+from .spill import Spill
+from .tables import table_rows
 
 
 def read_logs(paths, robot=None, profile=None, options=None) -> Dataset:
@@ -32,7 +35,7 @@ def read_logs(paths, robot=None, profile=None, options=None) -> Dataset:
     return _load(paths, robot, profile, options, condition=False)
 
 
-def load_dataset(paths, robot=None, profile=None, options=None) -> Dataset:
+def load_dataset(paths, robot=None, profile=None, options=None, *, stream: bool | None = None, block: int | None = None) -> Dataset:
     """Read, validate and condition logs into identification samples.
 
     Parameters
@@ -44,12 +47,53 @@ def load_dataset(paths, robot=None, profile=None, options=None) -> Dataset:
     profile : optional log profile (YAML path, dict or :class:`LogProfile`).
     options : optional dict or :class:`LogOptions`; its entries override the profile's
         ``conditioning`` section.
+    stream : read and condition the logs block by block into a temporary store on disk
+        (:mod:`ident.data.streaming`: same samples, memory of one block). None (default): when a
+        CSV or Parquet log holds more than :data:`ident.data.streaming.STREAM_ROWS` rows and the
+        options allow it; True: whenever the options allow it; False: never.
+    block : samples a block on that path (default :data:`ident.data.streaming.BLOCK`).
 
     Returns
     -------
-    Dataset with conditioned segments: q (rad or m), dq, ddq, tau (N m or N), each (m, n).
+    Dataset with conditioned segments: q (rad or m), dq, ddq, tau (N m or N), each (m, n). On the
+    block path the segments keep their arrays on disk (:class:`ident.data.spill.StoredSegment`:
+    the same fields, read on access; ``read(a, b)`` reads a range of rows).
     """
-    return _load(paths, robot, profile, options, condition=True)
+    prof = load_profile(profile)
+    opts = _resolve_options(prof, options)
+    if (stream is not False and streaming.streamable(opts) is None and _tables_only(paths, prof)
+            and (stream or any((_estimated_rows(p, prof) or 0) > streaming.STREAM_ROWS for p in _path_list(paths)))):
+        try:
+            return _load(paths, robot, prof, opts, condition=True, stream_block=int(block or streaming.BLOCK), resolved=True)
+        except streaming.NotStreamable:
+            pass  # irregular sampling or an extreme trim: the whole-file path below handles it
+    return _load(paths, robot, prof, opts, condition=True, resolved=True)
+
+
+def _path_list(paths) -> list:
+    return [paths] if isinstance(paths, (str, Path)) else list(paths)
+
+
+def _tables_only(paths, prof: LogProfile) -> bool:
+    try:
+        return all(Path(p).is_file() and log_format(p, prof) in ("csv", "parquet") for p in _path_list(paths))
+    except DataError:
+        return False  # the whole-file path reports it
+
+
+def _estimated_rows(path, prof: LogProfile) -> int | None:
+    """Rows of a table log: exact for Parquet (footer), estimated from the first lines for CSV."""
+    fmt = log_format(path, prof)
+    if fmt == "parquet":
+        return table_rows(Path(path), fmt)
+    try:
+        size = Path(path).stat().st_size
+        with open(path, "rb") as fh:
+            head = fh.read(1 << 16)
+    except OSError:
+        return None
+    lines = head.count(b"\n")
+    return int(size / (len(head) / lines)) if lines > 1 else None
 
 
 def _resolve_options(prof: LogProfile, options) -> LogOptions:
@@ -62,17 +106,25 @@ def _resolve_options(prof: LogProfile, options) -> LogOptions:
     return opts.updated(options, "options")
 
 
-def _cutoff_of(pieces, opts: LogOptions, path) -> tuple[float, dict]:
-    longest = max(pieces, key=lambda s_: s_.n_samples)
+def _cutoff_of(pieces, opts: LogOptions, path, raw=None) -> tuple[float, dict]:
+    """The data-chosen cutoff (Hz) and its record, from at most the first STAT_SAMPLES samples of
+    the longest piece (`raw`: the stored table the block path's pieces index into)."""
     f_max = opts.highest_frequency()
-    cutoff, info = cutoff_from_data(longest.q, 1.0 / longest.dt, None if f_max is None else CUTOFF_RATIO * f_max)
+    lowest = None if f_max is None else CUTOFF_RATIO * f_max
+    if raw is not None:
+        s0, e0, step = max(pieces, key=lambda p_: p_[1] - p_[0])
+        cutoff, info = cutoff_from_data(streaming.piece_head(raw, s0, e0), 1.0 / step, lowest)
+    else:
+        longest = max(pieces, key=lambda s_: s_.n_samples)
+        step = float(np.median(np.diff(longest.t[: STAT_SAMPLES + 1])))
+        cutoff, info = cutoff_from_data(longest.q[:STAT_SAMPLES], 1.0 / step, lowest)
     info["from"] = str(path)
     return cutoff, info
 
 
-def _load(paths, robot, profile, options, condition: bool) -> Dataset:
+def _load(paths, robot, profile, options, condition: bool, stream_block: int | None = None, resolved: bool = False) -> Dataset:
     prof = load_profile(profile)
-    opts = _resolve_options(prof, options)
+    opts = options if resolved else _resolve_options(prof, options)
     if isinstance(paths, (str, Path)):
         paths = [paths]
     paths = list(paths)
@@ -87,8 +139,14 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
     joint_names = None
     files = []
     noise = []
+    spill = out_files = None
+    if stream_block:
+        spill = Spill()
     for path in paths:
-        raw = read_log(path, robot, prof)
+        if stream_block:
+            raw = streaming.store_table(spill, Path(path), log_format(path, prof), robot, prof, stream_block)
+        else:
+            raw = read_log(path, robot, prof)
         if joint_names is None:
             joint_names = raw.joint_names
         elif raw.joint_names != joint_names:
@@ -96,22 +154,38 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
         if opts.delay is not None and np.ndim(opts.delay) == 1 and np.size(opts.delay) != len(joint_names):
             raise DataError(f"delay: {np.size(opts.delay)} values given for {len(joint_names)} joints")
         warnings += raw.warnings
-        counts["read"] += raw.t.shape[0]
-        pieces = uniform_pieces(raw, opts, warnings, counts)
-        rates = [1.0 / p.dt for p in pieces]
-        files.append(dict(path=str(path), samples=int(raw.t.shape[0]), duration=float(raw.t[-1] - raw.t[0]),
-                          rate=float(np.median(rates)) if rates else float("nan"), segments=len(pieces),
-                          logged=[c for c in CHANNELS if getattr(raw, c) is not None]))
+        if stream_block:
+            counts["read"] += raw.rows
+            pieces = streaming.pieces(raw, opts, warnings, counts, stream_block)
+            rates = [1.0 / step for _, _, step in pieces]
+            files.append(dict(path=str(path), samples=int(raw.rows), duration=float(raw.t_last - raw.t_first),
+                              rate=float(np.median(rates)) if rates else float("nan"), segments=len(pieces),
+                              logged=[c for c in CHANNELS if raw.ch[c] is not None]))
+        else:
+            counts["read"] += raw.t.shape[0]
+            pieces = uniform_pieces(raw, opts, warnings, counts)
+            rates = [1.0 / p.dt for p in pieces]
+            files.append(dict(path=str(path), samples=int(raw.t.shape[0]), duration=float(raw.t[-1] - raw.t[0]),
+                              rate=float(np.median(rates)) if rates else float("nan"), segments=len(pieces),
+                              logged=[c for c in CHANNELS if getattr(raw, c) is not None]))
         if not condition:
             segments += pieces
             continue
         if cutoff is None and pieces:
             # one cutoff for every file, chosen on the first one, so the parallel filter is the same throughout
-            cutoff, cutoff_info = _cutoff_of(pieces, opts, path)
+            cutoff, cutoff_info = _cutoff_of(pieces, opts, path, raw if stream_block else None)
         if thresholds is None:
             thresholds = np.zeros(len(joint_names))
         for seg in pieces:
-            segments += condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise, thresholds)
+            if stream_block:
+                if out_files is None:
+                    out_files = streaming.output_files(spill, len(joint_names))
+                segments += streaming.condition_stream(raw, seg[0], seg[1], opts, cutoff, joint_names, warnings, counts,
+                                                       noise, thresholds, out_files, stream_block)
+            else:
+                segments += condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise, thresholds)
+        if stream_block:
+            raw.close()
         del raw, pieces
     if condition and not segments:
         # the CLI shows this one line only, so it names the files and carries the warnings that explain it
@@ -127,4 +201,6 @@ def _load(paths, robot, profile, options, condition: bool) -> Dataset:
         noise_var = sum(v * d for v, d, _ in noise) / dof.sum()
         info["q_noise_var"] = sum(v * d for _, d, v in noise) / dof.sum()
         info["periods_averaged"] = int(dof.sum() + len(noise))
+    if stream_block:
+        info["stored"] = True  # segments on disk (StoredSegment), read back block by block
     return Dataset(list(joint_names), segments, warnings, noise_var, info)

@@ -83,7 +83,7 @@ def convert_channel(x: np.ndarray, spec: ChannelSpec, factor: float) -> None:
 CHANNEL_QUANTITY = {"q": "position", "dq": "velocity", "ddq": "acceleration", "tau": "torque"}
 
 
-def check_magnitude(x: np.ndarray, ch: str, where: str, unit: str) -> None:
+def check_magnitude(x: np.ndarray, ch: str, where: str, unit: str, offset: int = 0) -> None:
     """Refuse a channel (in SI) holding a value beyond the sane magnitude of its quantity, which
     would overflow the squares and products of the fit (row or message named)."""
     limit, si = MAGNITUDE[CHANNEL_QUANTITY[ch]]
@@ -91,10 +91,11 @@ def check_magnitude(x: np.ndarray, ch: str, where: str, unit: str) -> None:
         bad = np.flatnonzero(np.abs(x) > limit)
     if bad.size:
         k = int(bad[0])
-        raise DataError(f"{where}: {x[k]:g} at data {unit} {k + 1} is beyond any sane {CHANNEL_QUANTITY[ch]} (|value| <= {limit:g} {si})")
+        raise DataError(f"{where}: {x[k]:g} at data {unit} {offset + k + 1} is beyond any sane {CHANNEL_QUANTITY[ch]} (|value| <= {limit:g} {si})")
 
 
-def check_times(t: np.ndarray, where: str, unit: str) -> None:
+def check_times(t: np.ndarray, where: str, unit: str, offset: int = 0) -> None:
+    """Times (m,) must increase; `offset`: data rows before t[0] (for a block of a longer log)."""
     if t.shape[0] < 2:
         raise DataError(f"{where}: only {t.shape[0]} sample(s); need a time series")
     d = np.diff(t)
@@ -102,4 +103,4 @@ def check_times(t: np.ndarray, where: str, unit: str) -> None:
     if bad.size:
         k = int(bad[0]) + 1
         what = "duplicate" if d[bad[0]] == 0 else "decreasing (non-monotonic)"
-        raise DataError(f"{where}: {what} timestamp at data {unit} {k + 1} (t = {t[k]:.9g} s after {t[k - 1]:.9g} s)")
+        raise DataError(f"{where}: {what} timestamp at data {unit} {offset + k + 1} (t = {t[k]:.9g} s after {t[k - 1]:.9g} s)")

@@ -6,6 +6,8 @@ trim, clipped-torque removal, decimation, optional averaging over excitation per
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from ..arm.model import LOW_SPEED_SCALES
@@ -42,6 +44,114 @@ MIN_SLOW_FRACTION = 1e-3
 #: A torque within this fraction of its saturation level counts as clipped.
 CLIP_FRACTION = 0.999
 
+#: Statistics taken over a whole segment or file -- the nominal sample step, the velocity noise,
+#: the RMS velocity and the acceleration at reversals that set the slow zone, the data-chosen
+#: cutoff -- use at most its first this many samples (about 8.7 minutes at 1 kHz). Shorter logs
+#: see no difference; a long log is then conditioned block by block with a bounded look-ahead
+#: and gives the same samples as conditioning it whole (:mod:`ident.data.streaming`).
+STAT_SAMPLES = 2**19
+
+
+@dataclass
+class JointPlan:
+    """Per-segment settings of the per-joint conditioning, shared by every block of the segment.
+
+    `m` is the whole segment's length (samples), so a block's filter pads its true segment ends
+    exactly as a whole-segment filter does; `lite` says whether the dry-friction velocity comes
+    from a separate, lighter low-pass (``sign_cut`` Hz) than the parallel filter (``cutoff`` Hz).
+    """
+
+    m: int
+    fs: float
+    cutoff: float | None
+    sign_cut: float | None
+    window: int
+    need_dq: bool
+    need_ddq: bool
+    periodic: bool
+    margin: int
+    stuck_len: int
+    spread: int
+    order: int
+    derivative: str
+    slow_velocity: float | None
+
+    @classmethod
+    def make(cls, m: int, fs: float, cutoff, opts: LogOptions, periodic: bool, need_dq: bool, need_ddq: bool) -> "JointPlan":
+        """The plan of a segment of `m` samples at `fs` Hz conditioned with `cutoff` Hz and `opts`."""
+        window = opts.savgol_window or cond.savgol_window(fs, cutoff or 0.25 * fs)
+        margin = int(round(opts.reversal_margin * fs)) if opts.reversal_margin else 0
+        sign_cut = min(cond.SIGN_CUTOFF_RATIO * cutoff, 0.4 * fs) if cutoff else None
+        stuck_len = int(round((opts.stuck_time if opts.stuck_time is not None else max(0.1, 5.0 / cutoff if cutoff else 0.1)) * fs))
+        spread = int(round(SLOW_SPREAD / cutoff * fs)) if (cutoff and opts.slow_velocity is None) else 0
+        return cls(int(m), float(fs), cutoff, sign_cut, int(window), need_dq, need_ddq, periodic, margin, stuck_len, spread,
+                   int(opts.filter_order), opts.derivative, opts.slow_velocity)
+
+    @property
+    def lite(self) -> bool:
+        return bool(self.sign_cut and self.sign_cut > self.cutoff)
+
+    def filt(self, x: np.ndarray) -> np.ndarray:
+        """The parallel low-pass of one column (m,) of the segment, or of a block of it."""
+        if not self.cutoff:
+            return np.asarray(x, float)
+        return cond.lowpass(x, self.fs, self.cutoff, self.order, periodic=self.periodic,
+                            padlen=None if self.periodic else cond.pad_length(self.m, self.fs, self.cutoff))
+
+    def signals(self, qk, dqk=None, ddqk=None):
+        """Filtered position, velocity, dry-friction velocity and acceleration of one joint: 4 x (m,)."""
+        dt = 1.0 / self.fs
+        qf = self.filt(qk)
+        v = cond.derivative(qf, dt, self.derivative, self.window, self.periodic) if self.need_dq else self.filt(dqk)
+        # Velocity for the sign and shape of dry friction: filtered far less, so a reversal sits where
+        # the joint really turned; its dry-friction signals then go through the same low-pass as the
+        # torque (parallel filtering), and the regressor's Coulomb step is smeared as the torque's is.
+        if self.lite:
+            src = qk if self.need_dq else dqk
+            pad = None if self.periodic else cond.pad_length(self.m, self.fs, self.sign_cut)
+            lite = cond.lowpass(src, self.fs, self.sign_cut, self.order, periodic=self.periodic, padlen=pad)
+            v_sign = cond.derivative(lite, dt, "central", None, self.periodic) if self.need_dq else lite
+        else:
+            v_sign = v
+        a = cond.derivative(v, dt, self.derivative, self.window, self.periodic) if self.need_ddq else self.filt(ddqk)
+        return qf, v, v_sign, a
+
+    def thresholds(self, v, v_sign, a) -> tuple[float, float]:
+        """(slow-zone velocity, noise-zone velocity) of one joint from its statistics samples."""
+        # slow zone: where the velocity is within its own noise of zero, sign(q') is a coin toss; and
+        # within a quarter cutoff period of a reversal the low-pass cannot resolve what friction does
+        # there (stick-slip, breakaway), so those speeds leave the dry-friction rows too
+        dv = v_sign - v
+        noise_v = 1.4826 * float(np.median(np.abs(dv - np.median(dv)))) if self.lite else 0.0
+        still = max(SLOW_NOISE_MULTIPLE * noise_v, MIN_SLOW_FRACTION * float(np.sqrt(np.mean(v * v))))
+        turns = np.flatnonzero(np.diff(np.signbit(v).astype(np.int8)) != 0)
+        blur = REVERSAL_WINDOW / self.cutoff * float(np.median(np.abs(a[turns]))) if (self.cutoff and turns.size) else 0.0
+        thr = float(self.slow_velocity) if self.slow_velocity is not None else max(still, blur)
+        return thr, still
+
+    def flags(self, v, v_sign, thr: float, still: float):
+        """(slow, stuck) (m,) bool flags of one joint for the given zone velocities."""
+        m = v.shape[0]
+        low = (np.abs(v_sign) < thr) & (np.abs(v) < thr)
+        # stuck: inside the noise zone (whatever slow threshold the user chose) for long enough
+        quiet = (np.abs(v_sign) < still) & (np.abs(v) < still)
+        stuck_k = np.zeros(m, dtype=bool)
+        if self.stuck_len > 1:
+            for a_, b_ in _runs(quiet):
+                if b_ - a_ >= self.stuck_len:
+                    stuck_k[a_:b_] = True
+        flag = (_dilate(low, self.spread) if self.spread else low) & ~stuck_k
+        if self.margin:
+            rev = np.concatenate([np.diff(np.signbit(v).astype(np.int8)) != 0, [False]])
+            flag |= _dilate(rev, self.margin) & ~stuck_k
+        return flag, stuck_k
+
+    def dry_signals(self, v_sign, dry: np.ndarray, k: int, rows) -> None:
+        """Write joint k's filtered dry-friction signals at `rows` into dry (len(rows), n, 4)."""
+        dry[:, k, 0] = self.filt(np.sign(v_sign))[rows]
+        for i, sc in enumerate(LOW_SPEED_SCALES):
+            dry[:, k, 1 + i] = self.filt(np.tanh(v_sign / sc))[rows]
+
 
 def uniform_pieces(raw: RawLog, opts: LogOptions, warnings: list[str], counts: dict) -> list[Segment]:
     """Apply windows, split at gaps, resample irregular pieces: raw, uniformly sampled segments."""
@@ -62,7 +172,7 @@ def uniform_pieces(raw: RawLog, opts: LogOptions, warnings: list[str], counts: d
     else:
         idx_sets.append((0, t.shape[0]))
     out = []
-    nominal_all = float(np.median(np.diff(t)))
+    nominal_all = float(np.median(np.diff(t[: STAT_SAMPLES + 1])))
     for a, b in idx_sets:
         d = np.diff(t[a:b])
         gaps = np.flatnonzero(d > opts.max_gap * nominal_all)
@@ -79,7 +189,7 @@ def uniform_pieces(raw: RawLog, opts: LogOptions, warnings: list[str], counts: d
             seg = Segment(raw.source, ts, raw.q[s:e], None if raw.dq is None else raw.dq[s:e],
                           None if raw.ddq is None else raw.ddq[s:e], raw.tau[s:e])
             dts = np.diff(ts)
-            step = float(np.median(dts))
+            step = float(np.median(dts[:STAT_SAMPLES]))
             dev = float(np.max(np.abs(dts - step))) / step
             if dev > opts.jitter:
                 seg = _resample(seg, step)
@@ -267,69 +377,24 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
         raise DataError(
             "no low-pass cutoff: give cutoff (Hz), or the excitation's max_frequency or period and harmonics, or cutoff 0 for no filtering"
         )
-    window = opts.savgol_window or cond.savgol_window(fs, cutoff or 0.25 * fs)
+    plan = JointPlan.make(m, fs, cutoff, opts, periodic, need_dq, need_ddq)
     out = {k: np.empty((allsel.size, n)) for k in ("q", "dq", "ddq", "tau")}
     slow = np.empty((allsel.size, n), dtype=bool)
     stuck = np.zeros((allsel.size, n), dtype=bool)
     dry = np.empty((allsel.size, n, 4))
-    margin = int(round(opts.reversal_margin * fs)) if opts.reversal_margin else 0
-    sign_cut = min(cond.SIGN_CUTOFF_RATIO * cutoff, 0.4 * fs) if cutoff else None
-    slow_spread = int(round(SLOW_SPREAD / cutoff * fs)) if cutoff else 0
-    stuck_len = int(round((opts.stuck_time if opts.stuck_time is not None else max(0.1, 5.0 / cutoff if cutoff else 0.1)) * fs))
-
-    def filt(x):
-        return cond.lowpass(x, fs, cutoff, opts.filter_order, periodic=periodic) if cutoff else np.asarray(x, float)
-
+    S = STAT_SAMPLES
     for k in range(n):  # one joint at a time keeps the temporaries to a few columns
-        qf = filt(q[:, k])
-        out["q"][:, k] = qf[allsel]
-        if need_dq:
-            v = cond.derivative(qf, dt, opts.derivative, window, periodic)
-        else:
-            v = filt(dq_log[:, k])
-        out["dq"][:, k] = v[allsel]
-        # Velocity for the sign and shape of dry friction: filtered far less, so a reversal sits where
-        # the joint really turned; its dry-friction signals then go through the same low-pass as the
-        # torque (parallel filtering), and the regressor's Coulomb step is smeared as the torque's is.
-        if sign_cut and sign_cut > cutoff:
-            src = q[:, k] if need_dq else dq_log[:, k]
-            lite = cond.lowpass(src, fs, sign_cut, opts.filter_order, periodic=periodic)
-            v_sign = cond.derivative(lite, dt, "central", None, periodic) if need_dq else lite
-        else:
-            v_sign = v
-        if need_ddq:
-            a = cond.derivative(v, dt, opts.derivative, window, periodic)
-        else:
-            a = filt(ddq_log[:, k])
-        # slow zone: where the velocity is within its own noise of zero, sign(q') is a coin toss; and
-        # within a quarter cutoff period of a reversal the low-pass cannot resolve what friction does
-        # there (stick-slip, breakaway), so those speeds leave the dry-friction rows too
-        dv = v_sign - v
-        noise_v = 1.4826 * float(np.median(np.abs(dv - np.median(dv)))) if v_sign is not v else 0.0
-        still = max(SLOW_NOISE_MULTIPLE * noise_v, MIN_SLOW_FRACTION * float(np.sqrt(np.mean(v * v))))
-        turns = np.flatnonzero(np.diff(np.signbit(v).astype(np.int8)) != 0)
-        blur = REVERSAL_WINDOW / cutoff * float(np.median(np.abs(a[turns]))) if (cutoff and turns.size) else 0.0
-        thr = float(opts.slow_velocity) if opts.slow_velocity is not None else max(still, blur)
+        qf, v, v_sign, a = plan.signals(q[:, k], None if dq_log is None else dq_log[:, k], None if ddq_log is None else ddq_log[:, k])
+        thr, still = plan.thresholds(v[:S], v_sign[:S], a[:S])
         thresholds[k] = max(thresholds[k], thr)
-        low = (np.abs(v_sign) < thr) & (np.abs(v) < thr)
-        # stuck: inside the noise zone (whatever slow threshold the user chose) for long enough
-        quiet = (np.abs(v_sign) < still) & (np.abs(v) < still)
-        stuck_k = np.zeros(m, dtype=bool)
-        if stuck_len > 1:
-            for a_, b_ in _runs(quiet):
-                if b_ - a_ >= stuck_len:
-                    stuck_k[a_:b_] = True
-        flag = (_dilate(low, slow_spread) if (slow_spread and opts.slow_velocity is None) else low) & ~stuck_k
-        if margin:
-            rev = np.concatenate([np.diff(np.signbit(v).astype(np.int8)) != 0, [False]])
-            flag |= _dilate(rev, margin) & ~stuck_k
+        flag, stuck_k = plan.flags(v, v_sign, thr, still)
+        out["q"][:, k] = qf[allsel]
+        out["dq"][:, k] = v[allsel]
         slow[:, k] = flag[allsel]
         stuck[:, k] = stuck_k[allsel]
-        dry[:, k, 0] = filt(np.sign(v_sign))[allsel]
-        for i, sc in enumerate(LOW_SPEED_SCALES):
-            dry[:, k, 1 + i] = filt(np.tanh(v_sign / sc))[allsel]
+        plan.dry_signals(v_sign, dry[:, :, :], k, allsel)
         out["ddq"][:, k] = a[allsel]
-        out["tau"][:, k] = filt(tau[:, k])[allsel]
+        out["tau"][:, k] = plan.filt(tau[:, k])[allsel]
         del qf, v, a
     counts["slow"] += int(slow.sum())
     counts["stuck"] += int(stuck.sum())

@@ -43,7 +43,42 @@ def _available_joints(columns: list[str], pattern: str) -> list[str]:
     return [m.group(1) for c in columns if (m := rx.match(c))]
 
 
-def read_table(path: Path, fmt: str, robot, prof: LogProfile) -> RawLog:
+class TablePlan:
+    """Which table column feeds each channel of each joint, with its unit conversion.
+
+    Built once per file from the header (:func:`table_plan`); :meth:`convert` turns the columns of
+    the whole table or of one block of rows into validated SI arrays.
+    """
+
+    def __init__(self, path: Path, model, wanted, tcol, need, limit, specs, factors, warns, rate):
+        self.path, self.joint_names, self.wanted, self.time_column = path, model, wanted, tcol
+        self.columns, self.limit, self.specs, self.factors, self.warnings, self.rate = need, limit, specs, factors, warns, rate
+        self.time_scale = 1.0
+
+    def convert(self, get, m: int, offset: int = 0) -> tuple[np.ndarray, dict]:
+        """Time (m,) s and channel arrays {q, dq, ddq, tau: (m, n) or None} of `m` rows starting
+        at data row ``offset + 1`` (`get(column)` gives a pyarrow column); errors name the row."""
+        path, n = self.path, len(self.joint_names)
+        if self.rate is None:
+            t = _numeric(get(self.time_column), path, self.time_column, offset) * self.time_scale
+        else:
+            t = np.arange(offset, offset + m, dtype=float) / self.rate
+        arrays = {}
+        for ch in CHANNELS:
+            if self.wanted[ch][0] is None:
+                arrays[ch] = None
+                continue
+            a = np.empty((m, n), order="F")  # column-major: each column is written and filtered contiguously
+            for k, col in enumerate(self.wanted[ch]):
+                a[:, k] = _numeric(get(col), path, col, offset)
+                convert_channel(a[:, k], self.specs[ch][k], self.factors[ch][k])
+                check_magnitude(a[:, k], ch, f"{path}: column '{col}'", "row", offset)
+            arrays[ch] = a
+        return t, arrays
+
+
+def table_plan(path: Path, fmt: str, robot, prof: LogProfile) -> TablePlan:
+    """Read the header of a CSV or Parquet log and map its columns to channels (errors name the column)."""
     columns = _table_columns(path, fmt)
     dup = sorted({c for c in columns if columns.count(c) > 1})
     if dup:
@@ -75,37 +110,115 @@ def read_table(path: Path, fmt: str, robot, prof: LogProfile) -> RawLog:
     need = [c for ch in CHANNELS for c in wanted[ch] if c is not None]
     if prof.rate is None:
         need = [tcol] + need
-    get = _column_source(path, fmt, need)
-    m = get.n_rows
-    if m == 0:
-        raise DataError(f"{path}: no data rows")
-    if prof.rate is None:
-        t = _numeric(get(tcol), path, tcol) * TIME_UNITS[prof.time_unit]
-    else:
-        t = np.arange(m, dtype=float) / prof.rate
-    arrays = {}
     jt = robot.joint_type if robot is not None else [None] * n
     limit = np.full(n, np.inf)
     if robot is not None:
         limit[:] = robot.effort_limit
+    specs, factors = {}, {}
     for ch in CHANNELS:
-        if wanted[ch][0] is None:
-            arrays[ch] = None
-            continue
-        a = np.empty((m, n), order="F")  # column-major: each column is written and filtered contiguously
+        specs[ch], factors[ch] = [], []
         for k, (j, col) in enumerate(zip(model, wanted[ch])):
             spec = channel_spec(prof, j, ch)
-            f = channel_factor(spec, ch, prof, jt[k], f"{path}: column '{col}'")
-            a[:, k] = _numeric(get(col), path, col)
-            convert_channel(a[:, k], spec, f)
-            check_magnitude(a[:, k], ch, f"{path}: column '{col}'", "row")
+            specs[ch].append(spec)
+            if col is None:
+                factors[ch].append(1.0)
+                continue
+            factors[ch].append(channel_factor(spec, ch, prof, jt[k], f"{path}: column '{col}'"))
             if ch == "tau" and spec.limit is not None:
                 limit[k] = spec.limit
-        arrays[ch] = a
+    plan = TablePlan(path, model, wanted, tcol, need, limit, specs, factors, warns, prof.rate)
+    plan.time_scale = TIME_UNITS[prof.time_unit]
+    return plan
+
+
+def read_table(path: Path, fmt: str, robot, prof: LogProfile) -> RawLog:
+    plan = table_plan(path, fmt, robot, prof)
+    get = _column_source(path, fmt, plan.columns)
+    m = get.n_rows
+    if m == 0:
+        raise DataError(f"{path}: no data rows")
+    t, arrays = plan.convert(get, m)
     del get
-    raw = RawLog(str(path), model, t, arrays["q"], arrays["dq"], arrays["ddq"], arrays["tau"], limit, warns)
+    raw = RawLog(str(path), plan.joint_names, t, arrays["q"], arrays["dq"], arrays["ddq"], arrays["tau"], plan.limit, plan.warnings)
     check_times(raw.t, str(path), "row")
     return raw
+
+
+def table_rows(path: Path, fmt: str) -> int | None:
+    """Data rows of a Parquet file from its footer (None for CSV: counting would mean reading it)."""
+    if fmt != "parquet":
+        return None
+    try:
+        import pyarrow.parquet as pq
+
+        return int(pq.ParquetFile(path).metadata.num_rows)
+    except Exception:  # noqa: BLE001 - a broken file is reported by the reader itself
+        return None
+
+
+#: Bytes of CSV text parsed at a time on the block path.
+CSV_BLOCK_BYTES = 2 << 20
+
+
+def _parquet_blocks(path: Path, cols: list[str], rows: int):
+    """Record batches of at most `rows` rows, one row group read at a time (the batch iterator of
+    pyarrow keeps what it has read allocated, so memory would grow with the file)."""
+    import pyarrow.parquet as pq
+
+    pf = pq.ParquetFile(path, pre_buffer=False)
+    for g in range(pf.num_row_groups):
+        tbl = pf.read_row_group(g, columns=cols)
+        yield from tbl.to_batches(max_chunksize=rows)
+        del tbl
+
+
+def iter_table_blocks(plan: TablePlan, fmt: str, rows: int):
+    """Yield ``(offset, t, arrays)`` for consecutive blocks of about `rows` data rows of a table,
+    validated as :meth:`TablePlan.convert` does (errors name file, column and data row); times
+    must increase across block edges too. Parquet is read by record batches, CSV by pyarrow's
+    streaming reader, so memory holds one block."""
+    path = plan.path
+    cols = plan.columns
+    try:
+        if fmt == "parquet":
+            batches = _parquet_blocks(path, cols, int(rows))
+        else:
+            import pyarrow as pa
+            import pyarrow.csv as pacsv
+
+            # small parse blocks: the reader parses several ahead on its threads
+            batches = pacsv.open_csv(path, read_options=pacsv.ReadOptions(block_size=CSV_BLOCK_BYTES),
+                                     convert_options=pacsv.ConvertOptions(include_columns=cols, column_types={c: pa.float64() for c in cols},
+                                                                          strings_can_be_null=True))
+    except Exception as exc:  # noqa: BLE001 - pyarrow's own error types: name the file, keep one line
+        detail = _diagnose_csv(path, cols) if fmt == "csv" else None
+        raise DataError(detail or f"{path}: cannot read as {fmt} ({first_line(exc)})") from None
+    offset, last = 0, None
+    it = iter(batches)
+    while True:
+        try:
+            batch = next(it)
+        except StopIteration:
+            break
+        except Exception as exc:  # noqa: BLE001 - as above, for a block further in
+            detail = _diagnose_csv(path, cols) if fmt == "csv" else None
+            raise DataError(detail or f"{path}: cannot read as {fmt} ({first_line(exc)})") from None
+        if batch is None or batch.num_rows == 0:
+            continue
+        m = batch.num_rows
+        names = batch.schema.names
+        t, arrays = plan.convert(lambda c, b=batch, nm=names: b.column(nm.index(c)), m, offset)
+        if last is not None:
+            check_times(np.concatenate([[last], t[:2]]), str(path), "row", offset - 1)
+        if m > 1:
+            check_times(t, str(path), "row", offset)
+        last = float(t[-1])
+        yield offset, t, arrays
+        offset += m
+    if offset == 0:
+        raise DataError(f"{path}: no data rows")
+    if offset < 2:
+        check_times(np.array([last]), str(path), "row")
 
 
 class _column_source:
@@ -174,7 +287,7 @@ def _diagnose_csv(path: Path, columns: list[str]) -> str | None:
     return None
 
 
-def _numeric(col, path: Path, name: str) -> np.ndarray:
+def _numeric(col, path: Path, name: str, offset: int = 0) -> np.ndarray:
     """A pyarrow column as float64 numpy; clear errors for text, nulls, NaN and inf."""
     import pyarrow as pa
     import pyarrow.compute as pc
@@ -184,9 +297,9 @@ def _numeric(col, path: Path, name: str) -> np.ndarray:
     if col.null_count:
         row = int(np.flatnonzero(pc.is_null(col).to_numpy(zero_copy_only=False))[0])
         # pyarrow's CSV reader turns empty cells and the texts NaN/NA/null alike into nulls
-        raise DataError(f"{path}: column '{name}' has an empty or NaN value at data row {row + 1}")
+        raise DataError(f"{path}: column '{name}' has an empty or NaN value at data row {offset + row + 1}")
     a = col.to_numpy().astype(float, copy=False)
     if not np.all(np.isfinite(a)):
         row = int(np.flatnonzero(~np.isfinite(a))[0])
-        raise DataError(f"{path}: column '{name}' has a non-finite value ({a[row]}) at data row {row + 1}")
+        raise DataError(f"{path}: column '{name}' has a non-finite value ({a[row]}) at data row {offset + row + 1}")
     return a

@@ -55,7 +55,7 @@ from ..arm.pack import pack_chunk
 from ..blas import single_thread_blas  # noqa: F401  (re-exported for the estimators)
 from ..errors import DataError, IdentError, NumericalError
 from .blocks import MAX_BLOCKS, BlockStore, block_length, block_ranges, merge_triangles
-from .segments import SegmentData, data_timing, iter_segments  # noqa: F401  (SegmentData re-exported)
+from .feed import SegmentData, data_timing, iter_segments, segment_rows, stored_segment  # noqa: F401  (public here too)
 
 #: Samples per chunk during compression (packed rows of a 7-joint arm: about 1.7 kB a sample).
 CHUNK = 2048
@@ -570,31 +570,48 @@ def compress(robot: Robot, data, terms=(), base: BaseParameters | None = None, p
     if drop_slow is None:
         drop_slow = any(c in DRY_FRICTION_TERMS for c in comp.terms)
     segs = list(iter_segments(robot, data, with_slow=True))
-    total = sum(s.q.shape[0] for s in segs)
+    total = sum(segment_rows(s) for s in segs)
     dt, cutoff = data_timing(data)
     if block is None:
-        block = block_length([s.q.shape[0] for s in segs], dt, cutoff)
+        block = block_length([segment_rows(s) for s in segs], dt, cutoff)
     elif block < 1:
         raise IdentError(f"block: must be a positive number of samples, got {block}")
     comp.block = int(block)
     done = 0
     for seg in segs:
         cb = None if progress is None else (lambda k, d0=done: progress(d0 + k, total))
-        add_segment(comp, seg, drop_slow, slow_velocity, progress=cb, dt=dt)
-        done += seg.q.shape[0]
+        if stored_segment(seg):
+            # a segment kept on disk: read and fold one time block at a time, the same blocks
+            # (and so the same triangles) as the whole segment in memory gives
+            N = seg.n_samples
+            ranges = block_ranges(N, comp.block) if comp.blocks is not None else [(a, min(N, a + STREAM_ROWS)) for a in range(0, N, STREAM_ROWS)]
+            for i, (a, b) in enumerate(ranges):
+                add_segment(comp, seg.read(a, b), drop_slow, slow_velocity, dt=dt, block=b - a, source=seg.source,
+                            progress=None if cb is None else (lambda k, a0=a, f=cb: f(a0 + k)))
+                if i:
+                    comp.sources.pop()  # one log, one source entry
+        else:
+            add_segment(comp, seg, drop_slow, slow_velocity, progress=cb, dt=dt)
+        done += segment_rows(seg)
     return comp
 
 
+#: Samples read at a time from a segment kept on disk when no time blocks are kept.
+STREAM_ROWS = 1 << 16
+
+
 def add_segment(comp: Compressor, seg: SegmentData, drop_slow: bool, slow_velocity: float | None = None, start: int = 0,
-                stop: int | None = None, ranges=None, progress=None, dt: float | None = None) -> Compressor:
+                stop: int | None = None, ranges=None, progress=None, dt: float | None = None, block: int | None = None,
+                source: str | None = None) -> Compressor:
     """Fold samples ``start:stop`` of one segment into `comp` as :func:`compress` does: slow
     samples out of the dry-friction rows (with `drop_slow`), stuck samples out of every row, the
     segment's filtered dry-friction signals in place of the computed ones.
 
-    seg : a :class:`SegmentData` (from :func:`iter_segments` with ``with_slow=True``).
+    seg : a :class:`SegmentData` (from :func:`iter_segments` with ``with_slow=True``), or the rows
+        read from a stored segment (then `source` names it).
     ranges : the time blocks of this stretch, [start, stop) relative to `start` (default: the
-        compressor's block length over the stretch). Folding a segment stretch by stretch with
-        its blocks' ranges gives the blocks of one call (up to the Gram route's rounding).
+        compressor's block length over the stretch, or `block`). Folding a segment stretch by
+        stretch with its blocks' ranges gives the blocks of one call (up to the Gram route's rounding).
     """
     stop = seg.q.shape[0] if stop is None else int(stop)
     sl = slice(int(start), stop)
@@ -605,5 +622,5 @@ def add_segment(comp: Compressor, seg: SegmentData, drop_slow: bool, slow_veloci
     if seg.stuck is not None:  # a stuck joint's friction is anything up to breakaway: no equation
         keep = ~seg.stuck[sl] if keep is None else keep & ~seg.stuck[sl]
     signals = None if seg.dry is None else term_columns(comp.terms, seg.dq[sl], seg.ddq[sl], seg.dry[sl])
-    return comp.add(seg.q[sl], seg.dq[sl], seg.ddq[sl], seg.tau[sl], source=seg.source, progress=progress, keep=keep,
-                    term_signals=signals, dt=dt, ranges=ranges)
+    return comp.add(seg.q[sl], seg.dq[sl], seg.ddq[sl], seg.tau[sl], source=seg.source if source is None else source,
+                    progress=progress, keep=keep, term_signals=signals, dt=dt, ranges=ranges, block=block)

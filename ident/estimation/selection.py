@@ -23,7 +23,7 @@ from ..arm.dynamics import term_columns
 from ..arm.model import Robot, parse_terms
 from ..blas import single_thread_blas
 from ..errors import DataError, NumericalError
-from .compress import Compressor, iter_segments
+from .compress import Compressor, iter_segments, segment_rows, stored_segment
 from .least_squares import solve_reduced
 
 #: The friction models tried, simplest first.
@@ -63,7 +63,7 @@ def choose_terms(robot: Robot, data, candidates=CANDIDATES, folds: int = FOLDS, 
     if not cands:
         raise DataError("term choice: no candidate term sets")
     segs = list(iter_segments(robot, data, with_slow=True))
-    total = sum(s.q.shape[0] for s in segs)
+    total = sum(segment_rows(s) for s in segs)
     if total == 0:
         raise DataError("term choice: no samples")
     stride = choice_stride(total, max_rows)
@@ -85,6 +85,20 @@ def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: 
     different segments folded apart (e.g. on different machines) combine with :func:`merge_parts`
     (equal up to rounding).
     """
+    if into is not None:
+        folds = len(next(iter(into.values())))
+    # the strided samples of each segment, read once (a segment on disk is read by rows)
+    subs = []
+    for seg in segs:
+        idx = np.arange(0, segment_rows(seg), stride)
+        if idx.size < folds:
+            continue
+        if stored_segment(seg):
+            part = seg.take(idx)
+            subs.append((seg.source, part.q, part.dq, part.ddq, part.tau, part.stuck, part.dry))
+        else:
+            subs.append((seg.source, seg.q[idx], seg.dq[idx], seg.ddq[idx], seg.tau[idx],
+                         None if seg.stuck is None else seg.stuck[idx], None if seg.dry is None else seg.dry[idx]))
     out = {}
     with single_thread_blas():
         for terms in (list(into) if into is not None else [parse_terms(c) for c in candidates]):
@@ -93,15 +107,11 @@ def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: 
                 folds = len(comps)
             else:
                 comps = [Compressor(robot, terms, base_parameters(robot, terms), keep_blocks=False) for _ in range(folds)]
-            for seg in segs:
-                m = seg.q.shape[0]
-                idx = np.arange(0, m, stride)
-                if idx.size < folds:
-                    continue
-                keep = None if seg.stuck is None else ~seg.stuck[idx]
-                cols = None if seg.dry is None else term_columns(terms, seg.dq[idx], seg.ddq[idx], seg.dry[idx])
-                for f, sl in enumerate(np.array_split(np.arange(idx.size), folds)):
-                    comps[f].add(seg.q[idx][sl], seg.dq[idx][sl], seg.ddq[idx][sl], seg.tau[idx][sl], source=seg.source,
+            for source, q, dq, ddq, tau, stuck, dry in subs:
+                keep = None if stuck is None else ~stuck
+                cols = None if dry is None else term_columns(terms, dq, ddq, dry)
+                for f, sl in enumerate(np.array_split(np.arange(q.shape[0]), folds)):
+                    comps[f].add(q[sl], dq[sl], ddq[sl], tau[sl], source=source,
                                  keep=None if keep is None else keep[sl], term_signals=None if cols is None else cols[sl])
             out[terms] = comps
     return out

@@ -1,7 +1,5 @@
-"""Walking the data handed to the fit: segments of a data set, array tuples, or lists of those.
-
-Each stretch comes out as a :class:`SegmentData` record carrying the arrays the compression folds
-and the flags and filtered dry-friction signals the conditioning left with it.
+"""What the fit reads: the segments of a data set (in memory or kept on disk), an array tuple, or
+a list of those, as uniform records with their slow/stuck flags and dry-friction signals.
 """
 
 from __future__ import annotations
@@ -12,6 +10,17 @@ import numpy as np
 
 from ..arm.model import Robot
 from ..errors import DataError
+
+
+def stored_segment(seg) -> bool:
+    """True for a segment that keeps its arrays on disk and reads them by rows
+    (:class:`ident.data.spill.StoredSegment`: ``read(a, b)``, ``take(rows)``)."""
+    return hasattr(seg, "read") and hasattr(seg, "take") and hasattr(seg, "n_samples")
+
+
+def segment_rows(seg) -> int:
+    """Samples of a segment from :func:`iter_segments` (without reading a stored one)."""
+    return int(seg.n_samples) if stored_segment(seg) else int(seg.q.shape[0])
 
 
 @dataclass
@@ -34,7 +43,7 @@ def data_timing(data) -> tuple[float | None, float | None]:
     conditioned with), or Nones for arrays."""
     if not hasattr(data, "segments"):
         return None, None
-    steps = [s.dt for s in data.segments if getattr(s, "t", None) is not None and s.n_samples > 1]
+    steps = [s.dt for s in data.segments if (stored_segment(s) or getattr(s, "t", None) is not None) and s.n_samples > 1]
     dt = float(np.median(steps)) if steps else None
     cutoff = getattr(data, "info", {}).get("cutoff")
     return dt, (float(cutoff) if cutoff else None)
@@ -44,7 +53,9 @@ def iter_segments(robot: Robot, data, with_slow: bool = False):
     """Yield the segments of a data set, an array tuple ``(q, dq, ddq, tau)``, or a list of those.
 
     Without `with_slow`: ``(source, q, dq, ddq, tau)`` tuples. With it: :class:`SegmentData`
-    records that also carry the segment's slow and stuck flags and filtered dry-friction signals.
+    records that also carry the segment's slow and stuck flags and filtered dry-friction signals,
+    or, for a segment kept on disk, that segment itself (same fields; :func:`stored_segment`),
+    so the caller can read it by rows.
     """
     for item in _segments(robot, data):
         yield item if with_slow else (item.source, item.q, item.dq, item.ddq, item.tau)
@@ -56,6 +67,9 @@ def _segments(robot: Robot, data):
         if names is not None and list(names) != list(robot.joint_names):
             raise DataError(f"data set joints {list(names)} do not match the model's joints {list(robot.joint_names)} (load it with the robot)")
         for k, seg in enumerate(data.segments):
+            if stored_segment(seg):
+                yield seg  # conditioned on the block path: read by rows where it is used
+                continue
             if seg.dq is None or seg.ddq is None:
                 raise DataError(f"{seg.source}: segment has no velocities/accelerations (load the logs with load_dataset, which conditions them)")
             yield SegmentData(str(getattr(seg, "source", "") or f"segment {k}"), seg.q, seg.dq, seg.ddq, seg.tau,
