@@ -186,9 +186,10 @@ def test_criteria_match_numpy_on_the_stacked_column_scaled_regressor(ur5_case):
 
 def test_objective_gradient_matches_finite_differences(ur5_case):
     robot, _, cfg, _ = ur5_case
-    for crit in ("cond", "logdet"):
+    for crit, sharp in (("cond", None), ("cond", 8.0), ("logdet", None)):
         c = ExcitationConfig.from_dict(robot, {**cfg, "criterion": crit})
         prob = DesignProblem(robot, c, None)
+        prob.sharpness = sharp  # the smooth (power-mean) condition number the starts explore with
         z = prob.random_z(np.random.default_rng(5))
         s, _ = prob.repair(z, s_max=np.inf)
         z = 1.2 * s * z  # slightly outside: penalties active too
@@ -204,6 +205,22 @@ def test_objective_gradient_matches_finite_differences(ur5_case):
         num = scipy.optimize.approx_fprime(z[idx], f_part, 1e-6)
         ana = prob.objective(z)[1][idx]
         assert np.max(np.abs(ana - num)) <= 1e-3 * np.max(np.abs(num))
+
+
+def test_smooth_condition_number_bounds_the_exact_one_and_tends_to_it():
+    from ident.motion.criteria import criterion_grad
+
+    rng = np.random.default_rng(2)
+    B = rng.normal(size=(40, 6)) * np.array([1.0, 2.0, 0.5, 3.0, 1.0, 0.1])
+    A = B.T @ B
+    exact, _ = criterion_grad(A, "cond")
+    # reference: numpy's condition number of the column-normalized matrix
+    assert exact == pytest.approx(np.log(np.linalg.cond(B / np.linalg.norm(B, axis=0))), rel=1e-10)
+    soft = [criterion_grad(A, "cond", p)[0] for p in (4.0, 16.0, 256.0)]
+    # power means bracket the extreme eigenvalues and approach them as p grows (power-mean
+    # inequality, from memory): an upper bound of log cond, decreasing in p, within log(6)/p
+    assert soft[0] >= soft[1] >= soft[2] >= exact
+    assert soft[2] - exact <= np.log(6) / 256 + 1e-12
 
 
 def test_fourier_series_derivatives_and_period():
@@ -248,6 +265,7 @@ def test_time_budget_stops_the_optimizer_and_progress_shows_the_best_criterion(m
     assert res.starts[0]["stop"] == "time budget"
     assert len(res.starts) < 3  # later starts skipped once the budget is spent
     assert "excite [" in bar and f"best cond {res.starts[0]['final']:.4g}" in bar
+    assert res.starts[0]["final"] == res.criteria["cond"]  # the bar's best is the written criterion
     assert "time budget stopped the optimizer" in summary_text(res)
     t = (np.arange(1000) + 0.5) * (cfg["period"] / 1000)
     _assert_constraints_hold(_pin_model(UR5), cfg, res.trajectory, t)

@@ -212,6 +212,33 @@ def frame_pose(robot: Robot, q, frame: str, point=None) -> tuple[np.ndarray, np.
     return Rb @ fr.R, pb + Rb @ local_p
 
 
+def point_motion(robot: Robot, Rw: np.ndarray, pw: np.ndarray, frame: str, point=None) -> tuple[np.ndarray, np.ndarray]:
+    """Position x (N, 3) m and linear Jacobian dx/dq (N, 3, n) of `point` (3,) m on link `frame`.
+
+    Takes the body poses Rw (N, n, 3, 3), pw (N, n, 3) of :func:`body_poses`, so several points
+    share one kinematics pass: column j is z_j x (x - o_j) for a revolute joint, z_j for a
+    prismatic one (z_j, o_j: joint j's axis and origin in the base frame).
+    """
+    fr = robot.frame(frame)
+    pt = np.zeros(3) if point is None else np.asarray(point, dtype=float).reshape(3)
+    local_p = fr.p + fr.R @ pt
+    N = Rw.shape[0]
+    J = np.zeros((N, 3, robot.n))
+    if fr.body < 0:
+        return np.broadcast_to(local_p, (N, 3)).copy(), J
+    x = pw[:, fr.body] + Rw[:, fr.body] @ local_p
+    for j in np.flatnonzero(robot.ancestors[fr.body]):
+        z = Rw[:, j] @ robot.axis[j]
+        if robot.joint_type[j] != 0:
+            J[:, :, j] = z
+            continue
+        r = x - pw[:, j]  # z x r written out: numpy's cross costs more than the arithmetic here
+        J[:, 0, j] = z[:, 1] * r[:, 2] - z[:, 2] * r[:, 1]
+        J[:, 1, j] = z[:, 2] * r[:, 0] - z[:, 0] * r[:, 2]
+        J[:, 2, j] = z[:, 0] * r[:, 1] - z[:, 1] * r[:, 0]
+    return x, J
+
+
 def jacobian(robot: Robot, q, frame: str, point=None) -> np.ndarray:
     """Geometric Jacobian (N, 6, n) of `point` on link `frame`: rows [linear velocity; angular velocity] in the base frame."""
     (q,) = robot.check_states(q, names=("q",))
@@ -221,14 +248,10 @@ def jacobian(robot: Robot, q, frame: str, point=None) -> np.ndarray:
     if fr.body < 0:
         return J
     Rw, pw = body_poses(robot, q)
-    _, x = frame_pose(robot, q, frame, point)
+    J[:, :3] = point_motion(robot, Rw, pw, frame, point)[1]
     for j in np.flatnonzero(robot.ancestors[fr.body]):
-        z = Rw[:, j] @ robot.axis[j]
         if robot.joint_type[j] == 0:
-            J[:, :3, j] = np.cross(z, x - pw[:, j])
-            J[:, 3:, j] = z
-        else:
-            J[:, :3, j] = z
+            J[:, 3:, j] = Rw[:, j] @ robot.axis[j]
     return J
 
 

@@ -49,7 +49,7 @@ def add_parser(sub) -> None:
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (created if missing)")
     p.add_argument("--seed", type=int, help="random seed of the starts (overrides optimizer.seed)")
     p.add_argument("--starts", type=int, help="number of optimizer starts (overrides optimizer.starts)")
-    p.add_argument("--budget", type=float, metavar="SECONDS", help="time budget of the optimizer (overrides optimizer.budget)")
+    p.add_argument("--budget", type=float, metavar="SECONDS", help="time budget of the optimizer, s (overrides optimizer.budget; default 15)")
     p.add_argument("--criterion", choices=("cond", "logdet"), help="criterion to optimize (overrides criterion)")
     p.add_argument("--augment", nargs="+", metavar="LOG", help="logs already recorded: design the next trajectory to improve the combined data")
     p.add_argument("--from", dest="from_coeffs", metavar="COEFFS", help="skip the design: re-check and re-write an existing coefficients file")

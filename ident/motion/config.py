@@ -18,6 +18,9 @@ from .keepout import REGION_KINDS, KeepoutPoint, Region
 
 CRITERIA = ("cond", "logdet")
 
+#: Default time budget of the optimizer, s.
+DEFAULT_BUDGET = 15.0
+
 
 @dataclass
 class ExcitationConfig:
@@ -47,7 +50,7 @@ class ExcitationConfig:
     regions: list[Region] = field(default_factory=list)
     seed: int = 0
     starts: int = 6
-    budget: float | None = 60.0
+    budget: float | None = DEFAULT_BUDGET
     max_iterations: int = 300
     design_samples: int = 120
     check_factor: int = 10
@@ -141,7 +144,7 @@ class ExcitationConfig:
         if not isinstance(opt, dict):
             raise IdentError(f"{where}: optimizer: expected a mapping")
         known_keys(opt, {"seed", "starts", "budget", "max_iterations", "design_samples", "check_factor"}, f"{where}: optimizer")
-        budget = opt.get("budget", 60.0)
+        budget = opt.get("budget", DEFAULT_BUDGET)
         if budget is not None:
             budget = positive_number(budget, f"{where}: optimizer.budget (s)")
             number(budget, f"{where}: optimizer.budget (s)", "time")

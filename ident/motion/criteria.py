@@ -54,10 +54,13 @@ def criteria_from_information(A: np.ndarray) -> dict:
     return {"cond": cond, "logdet": float(logdet) if sign > 0 else -math.inf}
 
 
-def criterion_grad(A: np.ndarray, kind: str) -> tuple[float, np.ndarray]:
+def criterion_grad(A: np.ndarray, kind: str, sharpness: float | None = None) -> tuple[float, np.ndarray]:
     """Minimized criterion f(A) and its gradient dF/dA (b, b) (symmetric).
 
-    cond: f = log cond = 0.5 (log lam_max - log lam_min) of C = D A D, D = diag(A)^-1/2.
+    cond: f = log cond = 0.5 (log lam_max - log lam_min) of C = D A D, D = diag(A)^-1/2. With
+    `sharpness` p, the extreme eigenvalues are replaced by power means, 0.5/p (log sum lam^p +
+    log sum lam^-p): a smooth upper bound of log cond (it tends to it as p grows) that L-BFGS-B
+    descends without stalling where the extreme eigenvalues cross.
     logdet: f = -log det(A) / b (mean log eigenvalue, so its scale matches the penalties).
     """
     b = A.shape[0]
@@ -77,8 +80,16 @@ def criterion_grad(A: np.ndarray, kind: str) -> tuple[float, np.ndarray]:
     lam, V = np.linalg.eigh(0.5 * (C + C.T))
     if lam[0] <= 0:
         return math.inf, np.zeros_like(A)
-    f = 0.5 * (math.log(lam[-1]) - math.log(lam[0]))
-    H = 0.5 * (np.outer(V[:, -1], V[:, -1]) / lam[-1] - np.outer(V[:, 0], V[:, 0]) / lam[0])
+    if sharpness is None:
+        f = 0.5 * (math.log(lam[-1]) - math.log(lam[0]))
+        H = 0.5 * (np.outer(V[:, -1], V[:, -1]) / lam[-1] - np.outer(V[:, 0], V[:, 0]) / lam[0])
+    else:
+        p = float(sharpness)
+        ll = np.log(lam)
+        # weights of the two power means, shifted by their largest exponent (no overflow)
+        wa, wc = np.exp(p * (ll - ll[-1])), np.exp(-p * (ll - ll[0]))
+        f = 0.5 * ((ll[-1] - ll[0]) + (math.log(wa.sum()) + math.log(wc.sum())) / p)
+        H = (V * (0.5 * (wa / wa.sum() - wc / wc.sum()) / lam)) @ V.T
     # dC = dD A D + D dA D + D A dD with dD_jj = -0.5 A_jj^-3/2 dA_jj
     G = Dv[:, None] * H * Dv[None, :]
     corr = (A * Dv[None, :] * H).sum(axis=1) * dg**-1.5  # (A D H)_jj A_jj^-3/2

@@ -24,7 +24,10 @@ from .config import ExcitationConfig
 from .constraints import Margins, check_trajectory, feasible, keepout_distances, prior_torque
 from .criteria import COND_UNUSABLE, criteria_from_information, information_matrix
 from .fourier import REST_TOLERANCE, FourierTrajectory
-from .problem import PENALTY_STAGES, BudgetExhausted, DesignProblem
+from .problem import EXPLORE_STAGE, POLISH_STAGES, BudgetExhausted, DesignProblem
+
+#: Share of the time budget the exploration of the starts may use; polishing the best takes the rest.
+EXPLORE_SHARE = 0.55
 
 
 @dataclass
@@ -132,80 +135,143 @@ def design_excitation(robot: Robot, config: ExcitationConfig | dict, logs=None, 
         return _design(robot, cfg, logs, progress, max_evaluations)
 
 
+def polished_count(starts: int) -> int:
+    """How many of `starts` explored starts are polished: the best quarter, at least one."""
+    return max(1, min(starts, math.ceil(starts / 4)))
+
+
+def _stage(prob: DesignProblem, z: np.ndarray, mu: float, sharpness, iterations: int, on_eval) -> tuple[np.ndarray, str | None]:
+    """One L-BFGS-B stage from `z`: (the best point seen, None or why it stopped early)."""
+    prob.mu, prob.sharpness = mu, sharpness
+    state = {"z": z.copy(), "f": math.inf}
+
+    def fun(zz):
+        f, g = prob.objective(zz)
+        if f < state["f"]:
+            state["f"], state["z"] = f, zz.copy()
+        on_eval()
+        return f, g
+
+    try:
+        res = scipy.optimize.minimize(fun, z, jac=True, method="L-BFGS-B", options={"maxiter": iterations, "maxcor": 20})
+        # L-BFGS-B returns its last iterate; the best point seen is at least as good
+        return (res.x if res.fun <= state["f"] else state["z"]), None
+    except BudgetExhausted:
+        return state["z"], ("time budget" if time.monotonic() > prob.deadline else "evaluation cap")
+
+
+def _reported(prob: DesignProblem, X: np.ndarray, A0: np.ndarray | None) -> tuple[dict, dict]:
+    """Criteria of coefficient rows X as the result reports them: on the controller-rate samples of
+    one period, times the periods, combined with the earlier logs; returns (combined, new alone)."""
+    cfg = prob.cfg
+    traj = FourierTrajectory.from_coefficients(prob.robot.joint_names, cfg.period, X, cfg.home)
+    _, q, dq, ddq = traj.sample(cfg.rate, 1)
+    w = None if cfg.torque_noise is None else 1.0 / cfg.torque_noise
+    A_new = information_matrix(prob.robot, q[:-1], dq[:-1], ddq[:-1], cfg.terms, w, prob.bp) * cfg.periods
+    crit_new = criteria_from_information(A_new)
+    return (criteria_from_information(A_new + A0) if A0 is not None else crit_new), crit_new
+
+
+def _value(kind: str, crit: dict) -> float:
+    return crit["cond"] if kind == "cond" else -crit["logdet"]
+
+
 def _design(robot: Robot, cfg: ExcitationConfig, logs, progress: bool, max_evaluations: int | None) -> ExcitationResult:
     A0 = prior_information(robot, cfg, logs)
     prob = DesignProblem(robot, cfg, A0)
     rng = np.random.default_rng(cfg.seed)
     start_clock = time.monotonic()
-    prob.eval_cap = math.inf
-    per_start_cap = max_evaluations if max_evaluations is not None else math.inf
-    best = None
-    records = []
+    cap = max_evaluations if max_evaluations is not None else math.inf
+    kind = cfg.criterion
+    timed = cfg.budget is not None
+    deadline = start_clock + cfg.budget if timed else math.inf
+    # the exploration of the starts may use this share of the budget, the polish the rest
+    explore_end = start_clock + EXPLORE_SHARE * cfg.budget if timed else math.inf
+    n_polish = polished_count(cfg.starts)
+    records, cands = [], []  # cands: [reported value, record index, optimizer point z, coefficients X, criteria]
     budget_hit = False
     label = "excite" if logs is None else "excite (augment)"
-    crit_name = cfg.criterion
-    deadline = start_clock + cfg.budget if cfg.budget is not None else math.inf
-    with Progress(cfg.starts, label, enabled=progress) as bar:
+    best = None
+    done = [0.0]
+
+    def note() -> str:
+        head = f"start {min(len(records) + 1, cfg.starts)}/{cfg.starts}" if len(records) < cfg.starts or not cands else "polishing"
+        if best is None:
+            return head
+        return head + (f", best cond {best[4]['cond']:.4g}" if kind == "cond" else f", best logdet {best[4]['logdet']:.5g}")
+
+    with Progress(cfg.starts + n_polish, label, enabled=progress) as bar:
+
+        def on_eval():
+            bar.update(done[0] + min(prob.evals / max(cfg.max_iterations, 1), 0.99), note())
+
+        # -- exploration: every start descends the smooth criterion at a moderate penalty
         for k in range(cfg.starts):
             now = time.monotonic()
-            if now > deadline and best is not None:
+            if k > 0 and now > explore_end:  # the first start always runs: a result, however short
                 budget_hit = True
                 break
-            z0 = prob.screened_start(rng)
             t_rep = time.monotonic()
+            z0 = prob.screened_start(rng)
             s0, _ = prob.repair(z0, s_max=math.inf)
             t_rep = time.monotonic() - t_rep
             z = z0 * s0
-            # each start gets an equal share of what is left of the budget, less the time its
-            # closing repair and (for the last) the final checks take, so the budget is kept
-            share = (deadline - now) / (cfg.starts - k)
-            prob.deadline = now + share - (3.0 if k == cfg.starts - 1 else 1.5) * t_rep if math.isfinite(deadline) else math.inf
-            init = prob.criterion(prob.coeffs(z))[crit_name]
+            # an equal share of what is left of the exploration, less the closing repair and checks
+            prob.deadline = now + (explore_end - now) / (cfg.starts - k) - 2.0 * t_rep if timed else math.inf
+            init = prob.criterion(prob.coeffs(z))[kind]
             prob.evals = 0
-            prob.eval_cap = per_start_cap
-            reason = "converged"
-            # rising penalty weights: explore first, then pin the limits so the final scaling
-            # back into the feasible set costs almost nothing
-            for mu in PENALTY_STAGES:
-                prob.mu = mu
-                state = {"z": z.copy(), "f": math.inf}
-
-                def fun(zz, _state=state):
-                    f, g = prob.objective(zz)
-                    if f < _state["f"]:
-                        _state["f"], _state["z"] = f, zz.copy()
-                    bar.update(k + min(prob.evals / (len(PENALTY_STAGES) * cfg.max_iterations), 0.99), _note(crit_name, best, k, cfg.starts))
-                    return f, g
-
-                try:
-                    res = scipy.optimize.minimize(fun, z, jac=True, method="L-BFGS-B", options={"maxiter": cfg.max_iterations, "maxcor": 20})
-                    z = res.x
-                except BudgetExhausted:
-                    z = state["z"]
-                    reason = "time budget" if time.monotonic() > prob.deadline else "evaluation cap"
-                    budget_hit = budget_hit or reason == "time budget"
-                    break
-            s, m = prob.repair(z)
+            prob.eval_cap = cap
+            mu, sharp = EXPLORE_STAGE
+            z, stop = _stage(prob, z, mu, sharp, cfg.max_iterations, on_eval)
+            budget_hit = budget_hit or stop == "time budget"
+            s, _ = prob.repair(z)
             X = prob.coeffs(z, s)
-            crit = prob.criterion(X)
-            records.append({"start": k, "initial": init, "final": crit[crit_name], "scale": s, "evaluations": prob.evals, "stop": reason})
-            value = crit["cond"] if crit_name == "cond" else -crit["logdet"]
-            if s > 0 and np.isfinite(value) and (best is None or value < best[0]):
-                best = (value, X, crit)
-            bar.update(k + 1, _note(crit_name, best, k, cfg.starts))
+            crit, _ = _reported(prob, X, A0)
+            records.append({"start": k, "initial": init, "explored": crit[kind], "final": crit[kind], "scale": s, "evaluations": prob.evals,
+                            "stop": stop or "converged", "polished": False})
+            if s > 0 and np.isfinite(_value(kind, crit)):
+                cands.append([_value(kind, crit), k, z, X, crit])
+                if best is None or cands[-1][0] < best[0]:
+                    best = cands[-1]
+            done[0] = k + 1.0
+            bar.update(done[0], note())
+        # -- polish: the best starts go on at rising penalties to the exact criterion
+        chosen = sorted(cands, key=lambda c: (c[0], c[1]))[:n_polish]
+        for i, cand in enumerate(chosen):
+            now = time.monotonic()
+            if now > deadline:
+                budget_hit = True
+                break
+            rec = records[cand[1]]
+            prob.deadline = now + (deadline - now) / (len(chosen) - i) - 2.0 * t_rep if timed else math.inf
+            prob.evals = 0
+            z, stop = cand[2], None
+            for mu, sharp, share in POLISH_STAGES:
+                z, stop = _stage(prob, z, mu, sharp, max(1, round(share * cfg.max_iterations)), on_eval)
+                if stop:
+                    break
+            budget_hit = budget_hit or stop == "time budget"
+            s, _ = prob.repair(z)
+            X = prob.coeffs(z, s)
+            crit, _ = _reported(prob, X, A0)
+            rec.update(polished=True, evaluations=rec["evaluations"] + prob.evals, stop=stop or rec["stop"])
+            if s > 0 and _value(kind, crit) < cand[0]:  # polishing that lost ground keeps the explored design
+                cand[:] = [_value(kind, crit), cand[1], z, X, crit]
+                rec.update(final=crit[kind], scale=s)
+                if cand[0] < best[0]:
+                    best = cand
+            done[0] = cfg.starts + i + 1.0
+            bar.update(done[0], note())
+        bar.update(cfg.starts + n_polish, note())
     elapsed = time.monotonic() - start_clock
     if best is None:
         raise NumericalError(f"{cfg.source}: no start produced a usable trajectory: the limits and keep-out regions leave too little room around home for an informative motion")
-    traj = FourierTrajectory.from_coefficients(robot.joint_names, cfg.period, best[1], cfg.home)
-    t, q, dq, ddq = traj.sample(cfg.rate, 1)
+    traj = FourierTrajectory.from_coefficients(robot.joint_names, cfg.period, best[3], cfg.home)
     fine = np.concatenate([prob.tcheck, prob.tctrl])
     margins = check_trajectory(robot, cfg, traj, fine)
     if not feasible(margins):  # pragma: no cover - repair guarantees this; a loud failure if not
         raise NumericalError(f"{cfg.source}: the designed trajectory violates: {'; '.join(margins.violations(robot.joint_names))}")
-    w = None if cfg.torque_noise is None else 1.0 / cfg.torque_noise
-    A_new = information_matrix(robot, q[:-1], dq[:-1], ddq[:-1], cfg.terms, w, prob.bp) * cfg.periods
-    crit_new = criteria_from_information(A_new)
-    crit_all = criteria_from_information(A_new + A0) if A0 is not None else crit_new
+    crit_all, crit_new = _reported(prob, best[3], A0)
     crit_prior = criteria_from_information(A0) if A0 is not None else None
     if not crit_all["cond"] < COND_UNUSABLE:
         raise NumericalError(f"{cfg.source}: the best trajectory found leaves base parameters unidentifiable (condition number {crit_all['cond']:.3g}); the limits leave too little room: widen them or add harmonics")
@@ -236,13 +302,6 @@ def design_criteria(robot: Robot, config: ExcitationConfig, traj: FourierTraject
     """Both criteria of `traj` on the design grid of `config` (what the optimizer minimizes)."""
     prob = DesignProblem(robot, config, None)
     return prob.criterion(traj.coefficients)
-
-
-def _note(kind: str, best, start: int, starts: int) -> str:
-    head = f"start {start + 1}/{starts}"
-    if best is None:
-        return head
-    return head + (f", best cond {best[2]['cond']:.4g}" if kind == "cond" else f", best logdet {best[2]['logdet']:.5g}")
 
 
 def verify_trajectory(robot: Robot, config: ExcitationConfig, traj: FourierTrajectory, where: str = "coefficients") -> ExcitationResult:

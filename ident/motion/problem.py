@@ -15,7 +15,7 @@ import time
 import numpy as np
 
 from ..arm.base import base_parameters
-from ..arm.dynamics import frame_pose
+from ..arm.dynamics import body_poses, point_motion
 from ..arm.model import Robot
 from ..arm.regressor import regressor_into
 from ..errors import IdentError
@@ -28,8 +28,14 @@ from .fourier import FourierTrajectory, fourier_basis
 #: Random directions screened for each optimizer start.
 SCREEN = 8
 
-#: Penalty weights of the successive L-BFGS-B stages of each start.
-PENALTY_STAGES = (1e2, 1e4, 1e6)
+#: The exploring stage of every start: penalty weight and power-mean exponent of the smooth
+#: condition number (see :func:`ident.motion.criteria.criterion_grad`).
+EXPLORE_STAGE = (1e3, 8.0)
+
+#: The polishing stages of the best starts: penalty weight, exponent (None: the exact condition
+#: number) and share of ``max_iterations``. Rising weights pin the limits, so the final scaling back
+#: into the feasible set costs almost nothing.
+POLISH_STAGES = ((1e4, 32.0, 1.0), (1e6, None, 1.0 / 3.0))
 
 
 class BudgetExhausted(Exception):
@@ -81,6 +87,8 @@ class DesignProblem:
             self.term_cols.append((pos, c // nt, cfg.terms[c % nt]))
         self.prior_flat = robot.prior.reshape(-1)
         self.buf = np.empty(((3 * n + 1) * N, n, p_in))
+        self.states = np.empty((3, N, 3 * n + 1, n))
+        self.sharpness = None  # power-mean exponent of the smooth condition number (None: exact)
         self.v_smooth = 0.01 * cfg.velocity
         self.mu = 1.0
         self.evals = 0
@@ -133,23 +141,23 @@ class DesignProblem:
         X = self.coeffs(zflat)
         phi, dphi, ddphi = self.Phi
         q, dq, ddq = phi @ X.T, dphi @ X.T, ddphi @ X.T
-        # batched states: base, q + h e_i, dq + h e_i, ddq + e_i (forward differences; exact in
-        # q'' where the regressor is linear, second order in q' where it is quadratic)
+        # batched states, sample-major: base, q + h e_i, dq + h e_i, ddq + e_i (forward
+        # differences; exact in q'' where the regressor is linear, second order in q' where it is
+        # quadratic); sample-major so the contraction below is one small product per sample
         hq, hd = 1e-7, 1e-6
-        Q = np.empty((3 * n + 1, N, n))
-        DQ = np.empty_like(Q)
-        DDQ = np.empty_like(Q)
-        Q[:], DQ[:], DDQ[:] = q, dq, ddq
-        for i in range(n):
-            Q[1 + i, :, i] += hq
-            DQ[1 + n + i, :, i] += hd
-            DDQ[1 + 2 * n + i, :, i] += 1.0
+        K = 3 * n + 1
+        Q, DQ, DDQ = self.states
+        Q[:], DQ[:], DDQ[:] = q[:, None, :], dq[:, None, :], ddq[:, None, :]
+        j = np.arange(n)
+        Q[:, 1 + j, j] += hq
+        DQ[:, 1 + n + j, j] += hd
+        DDQ[:, 1 + 2 * n + j, j] += 1.0
         regressor_into(robot, Q.reshape(-1, n), DQ.reshape(-1, n), DDQ.reshape(-1, n), self.buf, ())
-        Yall = self.buf.reshape(3 * n + 1, N, n, 10 * n)
-        Yin = Yall[0]
+        Yall = self.buf.reshape(N, K, n, 10 * n)
+        Yin = Yall[:, 0]
         Yb = self.base_rows(q, dq, ddq, Yin, smooth=True)
         A = self.information(Yb)
-        f, GA = criterion_grad(A, cfg.criterion)
+        f, GA = criterion_grad(A, cfg.criterion, self.sharpness)
         if not np.isfinite(f):
             f, GA = 50.0, np.zeros_like(A)  # rank-deficient point: flat high value, penalties still steer
         GY = 2.0 * self.factor * (self.w_row**2)[None, :, None] * (Yb @ GA)  # (N, n, b)
@@ -194,36 +202,34 @@ class DesignProblem:
                 gddq += Gtau * tm["ia"]
         # keep-out regions
         if cfg.regions:
-            for reg, pt, d, grad_x, J in self._keepout_terms(Q[: n + 1], hq):
+            for reg, pt, d, grad_x, J in self._keepout_terms(q):
                 v = np.maximum(-d / _KEEPOUT_SCALE, 0.0)
                 pen += mu * np.sum(v**2) / N
                 gx = -mu * 2.0 * v[:, None] * grad_x / _KEEPOUT_SCALE / N  # (N, 3)
                 gq += np.einsum("nk,nki->ni", gx, J)
-        # chain through the regressor: gradient on the full inertial regressor, contracted
+        # chain through the regressor: gradient on the full inertial regressor, contracted with
+        # the regressor at each batched state (one (K, n p) x (n p,) product per sample)
         Gfull = np.zeros((N, n, 10 * n))
         Gfull[:, :, self.inert_cols] = GY[:, :, self.inert_pos]
         Gfull += Gtau[:, :, None] * self.prior_flat[None, None, :]
-        s = np.einsum("knrc,nrc->kn", Yall, Gfull)  # (3n + 1, N)
-        gq += ((s[1 : 1 + n] - s[0]) / hq).T
-        gdq += ((s[1 + n : 1 + 2 * n] - s[0]) / hd).T
-        gddq += (s[1 + 2 * n : 1 + 3 * n] - s[0]).T
+        s = np.matmul(Yall.reshape(N, K, -1), Gfull.reshape(N, -1, 1))[:, :, 0]  # (N, K)
+        gq += (s[:, 1 : 1 + n] - s[:, :1]) / hq
+        gdq += (s[:, 1 + n : 1 + 2 * n] - s[:, :1]) / hd
+        gddq += s[:, 1 + 2 * n : 1 + 3 * n] - s[:, :1]
         GX = gq.T @ phi + gdq.T @ dphi + gddq.T @ ddphi  # (n, m)
         return f + pen, (GX @ self.Z).reshape(-1)
 
-    def _keepout_terms(self, Qpert: np.ndarray, hq: float):
+    def _keepout_terms(self, q: np.ndarray):
         """Per (region, point): distance beyond the margin (N,), its gradient in x (N, 3) and the
-        point's position Jacobian (N, 3, n), by forward differences over the states `Qpert`
-        (n + 1, N, n) = [q, q + hq e_1, ...]."""
-        n1, N, n = Qpert.shape
-        flat = Qpert.reshape(-1, n)
+        point's position Jacobian (N, 3, n), from one kinematics pass at the states `q` (N, n)."""
+        Rw, pw = body_poses(self.robot, q)
         cache = {}
         for reg in self.cfg.regions:
             for pt in self.cfg.points:
                 if reg.points is not None and pt.name not in reg.points:
                     continue
                 if pt.name not in cache:
-                    x = frame_pose(self.robot, flat, pt.link, pt.point)[1].reshape(n1, N, 3)
-                    cache[pt.name] = (x[0], ((x[1:] - x[0]) / hq).transpose(1, 2, 0))
+                    cache[pt.name] = point_motion(self.robot, Rw, pw, pt.link, pt.point)
                 x, J = cache[pt.name]
                 d, g = reg.distance(x)
                 yield reg, pt, d - reg.margin, g, J
@@ -252,7 +258,11 @@ class DesignProblem:
             return s_hi, m
 
         def bisect(lo, hi, times):
-            while hi - lo > tol * hi:
+            # bounded: a scale below 2^-60 of the kinematic one is no motion (a huge torque guess
+            # can make every s > 0 infeasible), so the repair's time is bounded whatever the config
+            for _ in range(60):
+                if hi - lo <= tol * hi:
+                    break
                 mid = 0.5 * (lo + hi)
                 if feasible(self.margins(z, mid, times)):
                     lo = mid
