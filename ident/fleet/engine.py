@@ -31,6 +31,10 @@ from ..progress import Progress
 from . import tasks as T
 from .catalog import Group
 
+#: Periods kept in flight per worker thread (enough to keep every worker busy while the client
+#: plans the next stage).
+IN_FLIGHT = 3
+
 
 @dataclass
 class FleetRun:
@@ -138,7 +142,7 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
         kinds[f.key] = (kind, p, f)
         ac.add(f)
 
-    for g in groups:
+    def start(g):
         jobs = _jobs(g, settings)
         p = _Period(g, jobs)
         periods[(g.arm, g.period)] = p
@@ -151,7 +155,21 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
             watch(s, ("summary", k), p)
         for d in p.data:
             watch(d, ("other", None), p)
-    bar.total = max(run.tasks, 1)
+
+    # A window of periods in flight, not the whole fleet: each conditioned log waits in a worker's
+    # memory until its period is fitted, so submitting everything at once would hold every log of
+    # the fleet at the same time (memory, and garbage-collection time that grows with it).
+    pending = list(groups)
+    workers = max(1, sum(client.nthreads().values())) if hasattr(client, "nthreads") else 1
+    for _ in range(min(len(pending), IN_FLIGHT * workers)):
+        start(pending.pop(0))
+    # the bar's total: the tasks of the periods started so far, scaled to the whole fleet
+    per_period = max(run.tasks, 1) / max(len(groups) - len(pending), 1)
+
+    def estimate_total():
+        return max(run.tasks + int(round(per_period * len(pending))), 1)
+
+    bar.total = estimate_total()
     try:
         with bar:
             for done, f in enumerate(ac, start=1):
@@ -163,10 +181,16 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
                     except Exception as exc:  # noqa: BLE001 - a worker lost or a bug: this log is out
                         p.summaries[kind[1]] = {"failed": T.Failed(p.jobs[kind[1]].log, first_line(exc))}
                     if len(p.summaries) == len(p.jobs):
-                        for nf in _second_stage(run, p, settings, submit, quiet):
+                        new = _second_stage(run, p, settings, submit, quiet)
+                        for nf in new:
                             watch(nf, ("fit", None) if nf is p.fit else ("other", None), p)
-                        bar.total = max(run.tasks, 1)
+                        if p.fit is None and pending:  # nothing to fit in this period: the next one starts
+                            start(pending.pop(0))
+                        bar.total = estimate_total()
                 elif kind[0] == "fit":
+                    if pending:
+                        start(pending.pop(0))
+                        bar.total = estimate_total()
                     g = p.group
                     try:
                         run.fits[(g.arm, g.period)] = f.result()
