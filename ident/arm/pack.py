@@ -21,7 +21,6 @@ def _pack_range(q, dq, ddq, tau, signals, keep, rowpos, center, centered, parent
                 ncol, offs, out, start, stop):
     """Packed compression rows of samples start..stop-1 (see :func:`pack_chunk`), with scratch of its own."""
     n = q.shape[1]
-    nt = signals.shape[2]
     R = np.empty((n, 3, 3))
     p = np.empty((n, 3))
     w = np.empty((n, 3))

@@ -104,7 +104,6 @@ def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: 
         for terms in (list(into) if into is not None else [parse_terms(c) for c in candidates]):
             if into is not None:
                 comps = into[terms]
-                folds = len(comps)
             else:
                 comps = [Compressor(robot, terms, base_parameters(robot, terms), keep_blocks=False) for _ in range(folds)]
             for source, q, dq, ddq, tau, stuck, dry in subs:

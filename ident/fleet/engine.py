@@ -160,7 +160,7 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
     # memory until its period is fitted, so submitting everything at once would hold every log of
     # the fleet at the same time (memory, and garbage-collection time that grows with it).
     pending = list(groups)
-    workers = max(1, sum(client.nthreads().values())) if hasattr(client, "nthreads") else 1
+    workers = max(1, sum(client.nthreads().values()))
     for _ in range(min(len(pending), IN_FLIGHT * workers)):
         start(pending.pop(0))
     # the bar's total: the tasks of the periods started so far, scaled to the whole fleet

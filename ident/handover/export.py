@@ -206,16 +206,22 @@ def export_urdf_text(text: str, robot: Robot, ps: ParameterSet, where: str = "UR
     return out
 
 
+def description_text(path: Path, robot: Robot, what: str) -> str:
+    """The text of the URDF `path` that `robot` was read from, for an export (`what` names it in
+    errors): refused for a robot described otherwise (a DH file has no URDF to rewrite)."""
+    if robot.source_kind != "urdf":
+        raise IdentError(f"{path}: {what} needs the robot's URDF description, got a {robot.source_kind or 'non-URDF'} file")
+    try:
+        return path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ModelError(f"{path}: cannot read ({exc})") from None
+
+
 def export_urdf(urdf_path, robot: Robot, ps: ParameterSet, out_path, friction: bool = False, digits: int = DIGITS) -> list[str]:
     """Write a copy of `urdf_path` with the identified inertial elements (see :func:`export_urdf_text`),
     atomically; returns the notes on how merged bodies were split."""
     p = Path(urdf_path)
-    if robot.source_kind != "urdf":
-        raise IdentError(f"{p}: URDF export needs a URDF robot description, got a {robot.source_kind or 'non-URDF'} file")
-    try:
-        text = p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ModelError(f"{p}: cannot read ({exc})") from None
+    text = description_text(p, robot, "URDF export")
     notes: list[str] = []
     write_text(out_path, export_urdf_text(text, robot, ps, where=str(p), friction=friction, digits=digits, notes=notes))
     return notes

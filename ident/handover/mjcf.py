@@ -25,6 +25,7 @@ from ..arm.spatial import from_vector
 from ..arm.urdf import urdf_specs
 from ..errors import IdentError, ModelError
 from ..fileio import write_text
+from .export import description_text
 from .inertials import DIGITS, hand_over, link_vector, round_sig
 
 
@@ -125,12 +126,7 @@ def mjcf_text(urdf_text: str, robot: Robot, ps: ParameterSet, where: str = "URDF
 def export_mjcf(urdf_path, robot: Robot, ps: ParameterSet, out_path, digits: int = DIGITS) -> None:
     """Write the MJCF model (see :func:`mjcf_text`) of the arm in `urdf_path`, atomically."""
     p = Path(urdf_path)
-    if robot.source_kind != "urdf":
-        raise IdentError(f"{p}: MJCF export needs the robot's URDF description, got a {robot.source_kind or 'non-URDF'} file")
-    try:
-        text = p.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ModelError(f"{p}: cannot read ({exc})") from None
+    text = description_text(p, robot, "MJCF export")
     write_text(out_path, mjcf_text(text, robot, ps, where=str(p), digits=digits))
 
 
