@@ -55,17 +55,21 @@ def term_columns(terms, dq, ddq, dry=None) -> np.ndarray:
     ddq = np.asarray(ddq, dtype=float)
     if dry is None:
         sgn = np.sign(dq)
-        shape = [np.tanh(dq / s) for s in LOW_SPEED_SCALES]
+
+        def shape(k):  # only for the codes asked for: three tanh of a chunk cost more than its syrk
+            return np.tanh(dq / LOW_SPEED_SCALES[k])
     else:
         dry = np.asarray(dry, dtype=float)
         if dry.shape != dq.shape + (4,):
             raise IdentError(f"dry-friction signals: expected shape {dq.shape + (4,)}, got {dry.shape}")
         sgn = dry[..., 0]
-        shape = [dry[..., 1 + k] for k in range(3)]
+
+        def shape(k):
+            return dry[..., 1 + k]
     cols = {"fv": lambda: dq, "fc": lambda: sgn, "fo": lambda: np.ones_like(dq), "ia": lambda: ddq,
             "fcp": lambda: 0.5 * (sgn + 1.0) if dry is not None else (dq > 0).astype(float),
             "fcn": lambda: 0.5 * (sgn - 1.0) if dry is not None else -(dq < 0).astype(float),
-            "fl1": lambda: shape[0], "fl2": lambda: shape[1], "fl3": lambda: shape[2]}
+            "fl1": lambda: shape(0), "fl2": lambda: shape(1), "fl3": lambda: shape(2)}
     codes = list(terms)
     out = np.empty(dq.shape + (len(codes),))
     for t, c in enumerate(codes):

@@ -179,7 +179,7 @@ class Compressor:
         # Pickled to send compressed data between machines: the kernel's packing buffers and
         # caches (megabytes) are rebuilt on first use, so only the triangles and counts travel.
         state = dict(self.__dict__)
-        for k in ("_packing", "_all_kept", "_cm_for", "_cm", "_rows_now"):
+        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now"):
             state.pop(k, None)
         return state
 
@@ -242,6 +242,9 @@ class Compressor:
                     rows = np.full(self.robot.n, b - a, dtype=np.int64) if kb is None else kb.sum(axis=0)
                     self.triangles = [merge_triangles(T, B) for T, B in zip(self.triangles, tri)]
                     self.blocks.append(tri, rows, (b - a) * step)
+        # the packing buffer (megabytes) lives for one add only: where many compressors are kept
+        # (the term choice keeps one per candidate and fold) they would otherwise add up
+        self._buf = None
         self.samples += q.shape[0]
         self.rows += q.shape[0] if keep is None else keep.sum(axis=0)
         self.sources.append(source)
@@ -284,17 +287,16 @@ class Compressor:
                     raise IdentError("base columns are not in natural order (body by body, then joint terms)")
                 tsrc[j, nrigid[j] : cols.size] = (full[nrigid[j] :] - 10 * n) % max(nt, 1)
             kargs = (*kernel_arrays(self.robot), np.ascontiguousarray(self.robot.ancestors), np.ascontiguousarray(-self.robot.gravity, dtype=float))
-            buf = np.empty(self.chunk * int((ncol + 1).sum()))
-            self._packing = (kept, nrigid, tsrc, ncol, kargs, buf)
+            self._packing = (kept, nrigid, tsrc, ncol, kargs)
         return self._packing
 
     def _pack(self, q, dq, ddq, tau, keep, sig, start: int, stop: int, center) -> list[np.ndarray]:
         """Packed rows of samples start..stop-1: per joint a C-ordered (m_j, c_j + 1) block."""
-        kept, nrigid, tsrc, ncol, kargs, buf = self._layout()
+        kept, nrigid, tsrc, ncol, kargs = self._layout()
         n, m = self.robot.n, stop - start
-        if buf.size < m * int((ncol + 1).sum()):  # the kernel writes without bounds checks
-            buf = np.empty(m * int((ncol + 1).sum()))
-            self._packing = (kept, nrigid, tsrc, ncol, kargs, buf)
+        buf = getattr(self, "_buf", None)
+        if buf is None or buf.size < m * int((ncol + 1).sum()):  # the kernel writes without bounds checks
+            buf = self._buf = np.empty(max(m, self.chunk) * int((ncol + 1).sum()))
         if keep is None:
             if getattr(self, "_all_kept", None) is None or self._all_kept.shape[0] < m:
                 self._all_kept = np.ones((self.chunk, n), dtype=bool)
@@ -311,7 +313,7 @@ class Compressor:
     def _center_matrix(self, center) -> np.ndarray:
         """The centre per joint in regressor-column positions (n, 10 n + k), zero outside the base set."""
         if getattr(self, "_cm_for", False) is not center:
-            _, nrigid, tsrc, _, _, _ = self._layout()
+            _, nrigid, tsrc, _, _ = self._layout()
             n = self.robot.n
             nb = 10 * n
             cm = np.zeros((n, nb + len(self.terms)))
