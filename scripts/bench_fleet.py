@@ -9,6 +9,9 @@ run, on the same logs and settings:
 * a LocalCluster of 1 worker, then of 2 workers (single-threaded worker processes), each warmed
   up first on a small fleet so imports and compiled kernels are not timed.
 
+The three are timed in interleaved rounds and the best of each is compared (`--rounds`), with the
+spread printed, because a shared machine's load drifts over the minutes a round takes.
+
 Targets: 2 workers at least 1.7x faster than 1; the engine's overhead per log (1 worker against
 the plain loop) under 10 %.
 
@@ -19,6 +22,7 @@ the plain loop) under 10 %.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
 import sys
 import tempfile
@@ -44,6 +48,7 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--arms", type=int, default=25)
     ap.add_argument("--periods", type=int, default=8)
+    ap.add_argument("--rounds", type=int, default=3, help="interleaved timing rounds, best reported (default 3)")
     ap.add_argument("--auto", action="store_true", help="terms auto (the default of ident fleet) instead of fv,fc,ia")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
@@ -56,18 +61,28 @@ def main() -> int:
         groups = group_logs(read_catalog(made["catalog"]), "day")
         warm_groups = group_logs(read_catalog(warm["catalog"]), "day")
         n = sum(len(g.entries) for g in groups)
-        run_serial(warm_groups, settings)
-        t0 = time.perf_counter()
-        ref = run_serial(groups, settings)
-        loop = time.perf_counter() - t0
-        walls = {}
-        for workers in (1, 2):
-            with dask_client(None, workers) as client:
+        loops, walls = [], {1: [], 2: []}
+        with contextlib.ExitStack() as stack:
+            clients = {w: stack.enter_context(dask_client(None, w)) for w in (1, 2)}
+            run_serial(warm_groups, settings)
+            for client in clients.values():
                 run_fleet(client, warm_groups, settings, progress=False, quiet=True)
+            # interleaved rounds (loop, 1 worker, 2 workers, again ...): a shared machine's load
+            # drifts over minutes, and the best of each is compared
+            for _ in range(args.rounds):
                 t0 = time.perf_counter()
-                run = run_fleet(client, groups, settings, progress=False, quiet=True)
-                walls[workers] = time.perf_counter() - t0
-            assert len(run.fits) == len(ref.fits) == len(groups), (len(run.fits), len(ref.fits))
+                ref = run_serial(groups, settings)
+                loops.append(time.perf_counter() - t0)
+                for workers, client in clients.items():
+                    t0 = time.perf_counter()
+                    run = run_fleet(client, groups, settings, progress=False, quiet=True)
+                    walls[workers].append(time.perf_counter() - t0)
+                    assert len(run.fits) == len(ref.fits) == len(groups), (len(run.fits), len(ref.fits))
+    loop = min(loops)
+    spread = {k: max(v) / min(v) for k, v in walls.items()}
+    print(f"machine: {os.cpu_count()} CPUs, load average {os.getloadavg()[0]:.2f}; best of {args.rounds} interleaved rounds "
+          f"(spread worst/best: loop {max(loops) / loop:.2f}, 1 worker {spread[1]:.2f}, 2 workers {spread[2]:.2f})")
+    walls = {k: min(v) for k, v in walls.items()}
     terms = "auto" if args.auto else "fv,fc,ia"
     print(f"fleet of {n} logs ({len(groups)} arm-periods), quad4, terms {terms}, consistent fit, block jackknife")
     print(f"plain loop (same task functions, this process): {loop:8.2f} s  ({1e3 * loop / n:.1f} ms a log)")

@@ -196,7 +196,12 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
                         run.fits[(g.arm, g.period)] = f.result()
                     except Exception as exc:  # noqa: BLE001
                         _report(run, T.Failed(f"arm {g.arm}, period {g.period}", first_line(exc)), settings.strict, quiet)
-                    p.data = []
+                    # drop every reference to the period's futures: a future still held keeps its
+                    # result in the worker's memory, and a worker holding every fit of the fleet
+                    # makes each of its garbage collections (and so each later task) slower
+                    p.data, p.fit = [], None
+                    periods.pop((g.arm, g.period), None)
+                    del f
     except BaseException:
         for rec in list(kinds.values()):
             rec[2].cancel()
