@@ -179,7 +179,7 @@ class Compressor:
         # Pickled to send compressed data between machines: the kernel's packing buffers and
         # caches (megabytes) are rebuilt on first use, so only the triangles and counts travel.
         state = dict(self.__dict__)
-        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now"):
+        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now", "_ls_memo"):
             state.pop(k, None)
         return state
 
@@ -407,7 +407,11 @@ class Compressor:
 
     def _sets(self, tri) -> list[list[np.ndarray]]:
         """The triangle sets that together stand for the data folded so far."""
-        return [tri] if tri is self.triangles else [self.triangles, tri]
+        if tri is self.triangles or not any(T.any() for T in self.triangles):
+            return [tri]
+        if not any(T.any() for T in tri):  # a block not yet folded adds nothing
+            return [self.triangles]
+        return [self.triangles, tri]
 
     def _center(self, rows: np.ndarray, tri):
         """Centre for the Gram route: the least-squares estimate from the data folded so far, or
@@ -435,7 +439,21 @@ class Compressor:
         or None when it does not determine every base parameter well (above :data:`GRAM_KAPPA`)."""
         n, b = self.robot.n, self.n_base
         w = np.ones(n) if weights is None else np.asarray(weights, dtype=float).reshape(n)
+        # the check closing one time block and the centre opening the next see the same data
+        # (only its split between the totals and the block differs): solved once. The fold
+        # counts change with every chunk folded and every merge, so they mark the data.
+        mark = tuple(self.folded.values())
+        memo = getattr(self, "_ls_memo", None)
+        if weights is None and memo is not None and memo[0] == mark:
+            return memo[1]
         S = np.vstack([self.joint_rows(j, w[j], T[j]) for T in self._sets(tri) for j in range(n)])
+        out = self._solve_scaled(S)
+        if weights is None:
+            self._ls_memo = (mark, out)
+        return out
+
+    def _solve_scaled(self, S: np.ndarray):
+        b = self.n_base
         T = scipy.linalg.qr(S, mode="r", check_finite=False)[0][: b + 1]
         if T.shape[0] < b + 1:
             return None
