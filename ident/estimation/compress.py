@@ -437,7 +437,7 @@ class Compressor:
     def _scaled_ls(self, weights, tri):
         """(beta, scaled condition number, column norms D, R, rho) of the stacked problem so far,
         or None when it does not determine every base parameter well (above :data:`GRAM_KAPPA`)."""
-        n, b = self.robot.n, self.n_base
+        n = self.robot.n
         w = np.ones(n) if weights is None else np.asarray(weights, dtype=float).reshape(n)
         # the check closing one time block and the centre opening the next see the same data
         # (only its split between the totals and the block differs): solved once. The fold
@@ -453,6 +453,7 @@ class Compressor:
         return out
 
     def _solve_scaled(self, S: np.ndarray):
+        """:meth:`_scaled_ls` of the stacked rows S ((rows, b + 1))."""
         b = self.n_base
         T = scipy.linalg.qr(S, mode="r", check_finite=False)[0][: b + 1]
         if T.shape[0] < b + 1:
