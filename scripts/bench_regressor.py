@@ -114,7 +114,13 @@ def memory_child(N: int) -> None:
     for _, Y in iter_regressor(robot, q, dq, ddq):
         Yf = Y.reshape(-1, p)
         G += Yf.T @ Yf
-    peak_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # kB on Linux
+    # VmHWM of this address space: ru_maxrss would carry over the parent's peak across fork and exec
+    peak_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # kB on Linux (fallback)
+    try:
+        with open("/proc/self/status") as fh:
+            peak_kb = next(float(line.split()[1]) for line in fh if line.startswith("VmHWM:"))
+    except (OSError, StopIteration):
+        pass
     print(f"{peak_kb / 1024:.1f} {3 * q.nbytes / 1e6:.1f} {np.trace(G):.6e}")
 
 

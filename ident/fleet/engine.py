@@ -129,7 +129,6 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
 
     run = FleetRun()
     ac = as_completed()
-    periods = {}
     kinds = {}
     bar = Progress(1, "fleet", enabled=progress and not quiet)
 
@@ -145,7 +144,6 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
     def start(g):
         jobs = _jobs(g, settings)
         p = _Period(g, jobs)
-        periods[(g.arm, g.period)] = p
         first = None
         for k, job in enumerate(jobs):
             d = submit(T.condition_log, job, first)
@@ -200,7 +198,6 @@ def run_fleet(client, groups: list[Group], settings: FitSettings, progress: bool
                     # result in the worker's memory, and a worker holding every fit of the fleet
                     # makes each of its garbage collections (and so each later task) slower
                     p.data, p.fit = [], None
-                    periods.pop((g.arm, g.period), None)
                     del f
     except BaseException:
         for rec in list(kinds.values()):
