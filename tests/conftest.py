@@ -39,3 +39,13 @@ def ur5() -> ident.Robot:
 def panda() -> ident.Robot:
     """The 7-joint arm from example-robot-data, fingers locked."""
     return ident.load_robot(erd_path(PANDA), locked=PANDA_FINGERS_LOCKED)
+
+
+@pytest.fixture(scope="session")
+def cluster():
+    """A Dask LocalCluster of 2 single-threaded worker processes, shared by the fleet tests."""
+    from distributed import LocalCluster
+
+    c = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None)
+    yield c
+    c.close()

@@ -11,14 +11,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.linalg
+from conftest import UR5, erd_path
+from test_estimate import random_physical_truth, sine_trajectory
 
 import ident
 from ident import Compressor, base_parameters, fit_compressed
 from ident.arm import kernels
 from ident.errors import DataError, IdentError
-
-from conftest import UR5, erd_path
-from test_estimate import random_physical_truth, sine_trajectory
 
 TERMS = ("fv", "fc", "ia")
 

@@ -48,16 +48,6 @@ def _ident(*args):
 
 
 @pytest.fixture(scope="session")
-def cluster():
-    # a LocalCluster of 2 single-threaded worker processes, shared by the runs below
-    from distributed import LocalCluster
-
-    c = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None)
-    yield c
-    c.close()
-
-
-@pytest.fixture(scope="session")
 def fleet(tmp_path_factory):
     folder = tmp_path_factory.mktemp("fleet")
     made = make_fleet(folder, QUAD4, FleetSpec(arms=8, periods=6), drift=DRIFT)

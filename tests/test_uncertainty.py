@@ -12,7 +12,6 @@ degrees of freedom.
 from __future__ import annotations
 
 import dataclasses
-
 from pathlib import Path
 
 import numpy as np

@@ -15,7 +15,7 @@ from ..fleet.drift import ALARM, BASELINE_PERIODS, FLEET_ALARM, WATCH, drift_fla
 from ..fleet.engine import FitSettings, dask_client, run_fleet
 from ..fleet.outputs import latest_fits, results_table, write_outputs
 from ..fleet.report import render_fleet_report
-from ..fleet.tasks import robot_of
+from ..fleet.tasks import CHUNK_ROWS, robot_of
 from .common import add_terms_argument, print_json, terms_from_args
 from .logs import add_log_arguments, options_from_args
 
@@ -60,6 +60,9 @@ def add_parser(sub) -> None:
     g.add_argument("--split-logs", action="store_true",
                    help="compress the stretches of a period's logs in parallel and merge them (faster for few, long logs; equal to "
                    "'ident fit' up to rounding instead of bit for bit; the consistent fit then agrees to its solver's tolerance)")
+    g.add_argument("--chunk-rows", type=int, default=CHUNK_ROWS, metavar="N",
+                   help=f"cut a CSV or Parquet log longer than N rows into chunks of about N rows that any worker reads and "
+                   f"conditions (default {CHUNK_ROWS}; 0: never cut)")
     g.add_argument("--strict", action="store_true", help="stop at the first log or period that fails (default: report it and go on)")
     d = p.add_argument_group("drift")
     d.add_argument("--alarm", type=float, default=ALARM, metavar="SIGMAS",
@@ -94,6 +97,8 @@ def _check(args) -> None:
     for opt, v in (("--alarm", args.alarm), ("--fleet-alarm", args.fleet_alarm), ("--connect-timeout", args.connect_timeout)):
         if not (math.isfinite(v) and v > 0):
             raise IdentError(f"{opt}: must be a positive number, got {v}")
+    if args.chunk_rows < 0:
+        raise IdentError(f"--chunk-rows: must be 0 (never cut) or a positive number of rows, got {args.chunk_rows}")
     if args.baseline_periods < 1:
         raise IdentError(f"--baseline-periods: must be at least 1, got {args.baseline_periods}")
 
@@ -122,7 +127,7 @@ def run(args) -> int:
     for e in entries:
         log_options(e)  # bad excitation files fail here, on the client, before the cluster starts
     settings = FitSettings(method=args.method, terms=terms, fit_options={"uncertainty": args.uncertainty}, log_options=log_options,
-                           strict=args.strict, split=args.split_logs)
+                           strict=args.strict, split=args.split_logs, chunk_rows=args.chunk_rows)
     show = not (args.quiet or args.json)
     with dask_client(args.scheduler, args.workers, args.connect_timeout) as client:
         result = run_fleet(client, groups, settings, progress=show, quiet=args.quiet)
@@ -141,7 +146,7 @@ def run(args) -> int:
         write_outputs(tmp, table, latest, ftab, result.failures, html)
     if args.json:
         print_json({"out": args.out, "fitted": len(result.fits), "arms": len(latest), "tasks": result.tasks,
-                    "failures": [{"name": f.name, "reason": f.message} for f in result.failures],
+                    "failures": [{"name": f.name, "reason": f.message} for f in result.failures], "notes": list(result.notes),
                     "flags": ftab.to_dict("records")})
     elif not args.quiet:
         print(f"fitted {len(result.fits)} arm-periods of {len(latest)} arms in {result.tasks} tasks; {len(result.failures)} failure(s)")
@@ -149,5 +154,7 @@ def run(args) -> int:
             print(f"flag: {f.line()}")
         for f in result.failures:
             sys.stdout.write(f"not used: {f.name}: {f.message}\n")
+        for note in result.notes:
+            sys.stdout.write(f"note: {note}\n")
         print(f"wrote {args.out}")
     return 0

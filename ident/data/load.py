@@ -60,9 +60,9 @@ def load_dataset(paths, robot=None, profile=None, options=None, *, stream: bool 
     the same fields, read on access; ``read(a, b)`` reads a range of rows).
     """
     prof = load_profile(profile)
-    opts = _resolve_options(prof, options)
+    opts = resolve_options(prof, options)
     if (stream is not False and streaming.streamable(opts) is None and _tables_only(paths, prof)
-            and (stream or any((_estimated_rows(p, prof) or 0) > streaming.STREAM_ROWS for p in _path_list(paths)))):
+            and (stream or any((estimated_rows(p, prof) or 0) > streaming.STREAM_ROWS for p in _path_list(paths)))):
         try:
             return _load(paths, robot, prof, opts, condition=True, stream_block=int(block or streaming.BLOCK), resolved=True)
         except streaming.NotStreamable:
@@ -81,7 +81,7 @@ def _tables_only(paths, prof: LogProfile) -> bool:
         return False  # the whole-file path reports it
 
 
-def _estimated_rows(path, prof: LogProfile) -> int | None:
+def estimated_rows(path, prof: LogProfile) -> int | None:
     """Rows of a table log: exact for Parquet (footer), estimated from the first lines for CSV."""
     fmt = log_format(path, prof)
     if fmt == "parquet":
@@ -96,7 +96,8 @@ def _estimated_rows(path, prof: LogProfile) -> int | None:
     return int(size / (len(head) / lines)) if lines > 1 else None
 
 
-def _resolve_options(prof: LogProfile, options) -> LogOptions:
+def resolve_options(prof: LogProfile, options) -> LogOptions:
+    """The log options of a profile's conditioning section overridden by `options` (dict or LogOptions)."""
     opts = LogOptions.from_mapping(prof.conditioning, f"{prof.source}: conditioning")
     if isinstance(options, LogOptions):
         return opts.updated({f.name: getattr(options, f.name) for f in dataclasses.fields(options)
@@ -106,7 +107,12 @@ def _resolve_options(prof: LogProfile, options) -> LogOptions:
     return opts.updated(options, "options")
 
 
-def _cutoff_of(pieces, opts: LogOptions, path, raw=None) -> tuple[float, dict]:
+def options_record(opts: LogOptions) -> dict:
+    """The options a data set was conditioned with, as plain values (its ``info["options"]``)."""
+    return {k: (v.tolist() if isinstance(v, np.ndarray) else v) for k, v in dataclasses.asdict(opts).items()}
+
+
+def cutoff_of(pieces, opts: LogOptions, path, raw=None) -> tuple[float, dict]:
     """The data-chosen cutoff (Hz) and its record, from at most the first STAT_SAMPLES samples of
     the longest piece (`raw`: the stored table the block path's pieces index into)."""
     f_max = opts.highest_frequency()
@@ -124,7 +130,7 @@ def _cutoff_of(pieces, opts: LogOptions, path, raw=None) -> tuple[float, dict]:
 
 def _load(paths, robot, profile, options, condition: bool, stream_block: int | None = None, resolved: bool = False) -> Dataset:
     prof = load_profile(profile)
-    opts = options if resolved else _resolve_options(prof, options)
+    opts = options if resolved else resolve_options(prof, options)
     if isinstance(paths, (str, Path)):
         paths = [paths]
     paths = list(paths)
@@ -173,7 +179,7 @@ def _load(paths, robot, profile, options, condition: bool, stream_block: int | N
             continue
         if cutoff is None and pieces:
             # one cutoff for every file, chosen on the first one, so the parallel filter is the same throughout
-            cutoff, cutoff_info = _cutoff_of(pieces, opts, path, raw if stream_block else None)
+            cutoff, cutoff_info = cutoff_of(pieces, opts, path, raw if stream_block else None)
         if thresholds is None:
             thresholds = np.zeros(len(joint_names))
         for seg in pieces:
@@ -193,7 +199,7 @@ def _load(paths, robot, profile, options, condition: bool, stream_block: int | N
         raise DataError(f"{', '.join(str(p) for p in paths)}: no samples left after conditioning ({why or 'check windows, gaps, clipping and segment lengths'})")
     noise_var = None
     info = dict(files=files, counts=counts, conditioned=condition,
-                options={k: (v.tolist() if isinstance(v, np.ndarray) else v) for k, v in dataclasses.asdict(opts).items()},
+                options=options_record(opts),
                 cutoff=cutoff, cutoff_rule=cutoff_info, profile=prof.source,
                 slow_velocity=None if thresholds is None else thresholds.tolist())
     if noise:

@@ -239,13 +239,19 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     return list(zip(np.flatnonzero(d == 1), np.flatnonzero(d == -1)))
 
 
+def period_samples(period: float, fs: float) -> int:
+    """Samples in one excitation period of `period` s at `fs` Hz (a whole number, else an error)."""
+    L = period * fs
+    Li = int(round(L))
+    if abs(L - Li) > 1e-3 * max(1.0, L) or Li < 4:
+        raise DataError(f"period: {period:g} s is not a whole number of samples at {fs:g} Hz ({L:.6g}); resample or fix the period")
+    return Li
+
+
 def _period_noise(seg: Segment, tau: np.ndarray, clipped: np.ndarray, opts: LogOptions, fs: float, noise: list) -> None:
     """Per-joint torque and position noise variance from the spread between whole periods, without
     replacing the samples by their average (appended to `noise` as (var_tau, dof, var_q))."""
-    L = opts.period * fs
-    Li = int(round(L))
-    if abs(L - Li) > 1e-3 * max(1.0, L) or Li < 4:
-        raise DataError(f"period: {opts.period:g} s is not a whole number of samples at {fs:g} Hz ({L:.6g}); resample or fix the period")
+    Li = period_samples(opts.period, fs)
     P = seg.q.shape[0] // Li
     # the first period holds the start-up transient of a closed loop: the spread is taken over the others
     blocks = [p for p in range(1, P) if not clipped[p * Li : (p + 1) * Li].any()]
@@ -300,10 +306,7 @@ def condition_segment(seg: Segment, limit: np.ndarray, opts: LogOptions, cutoff:
     if opts.period and not opts.average:
         _period_noise(seg, tau, clipped, opts, fs, noise)
     if opts.period and opts.average:
-        L = opts.period * fs
-        Li = int(round(L))
-        if abs(L - Li) > 1e-3 * max(1.0, L) or Li < 4:
-            raise DataError(f"period: {opts.period:g} s is not a whole number of samples at {fs:g} Hz ({L:.6g}); resample or fix the period")
+        Li = period_samples(opts.period, fs)
         P = m // Li
         if P < 2:
             warnings.append(f"{where}: shorter than two periods of {opts.period:g} s; segment skipped for period averaging")

@@ -20,6 +20,10 @@ segment does (the same edge padding length). The statistics that look at a whole
 :data:`ident.data.segments.STAT_SAMPLES` samples in both paths, so they are computed once, before
 the blocks, from a bounded look-ahead.
 
+The per-block conditioning (:func:`condition_rows`), the slow-zone statistics (:func:`piece_zones`)
+and the plausibility check from extremes (:func:`check_extremes`) are also what
+:mod:`ident.data.chunks` runs on a log cut into row ranges for several machines.
+
 Not on this path (the whole-file path runs instead): bags, time windows, a torque delay, period
 averaging, irregular sampling that needs resampling, and segments shorter than a block (those
 are conditioned whole, in memory).
@@ -37,7 +41,7 @@ from .checks import check_plausible
 from .dataset import CHANNELS, Segment
 from .options import LogOptions
 from .rawlog import RawLog
-from .segments import CLIP_FRACTION, STAT_SAMPLES, JointPlan, condition_segment
+from .segments import CLIP_FRACTION, STAT_SAMPLES, JointPlan, condition_segment, period_samples
 from .spill import Spill, StoredSegment
 
 #: Samples of a segment conditioned at a time (before the overlap is added).
@@ -86,6 +90,56 @@ def _release_arrow() -> None:
         pass
 
 
+def extremes(tau: np.ndarray, q: np.ndarray, offset: int, into=None):
+    """Running extremes of rows of a log for the plausibility check: ``(tau_max, q_max, q_min,
+    i_max, i_min)`` (n,) each, the rows counted in the file from `offset`; `into`: those of the
+    rows before, updated (the first row holding an extreme is kept, as argmax gives)."""
+    n = q.shape[1]
+    if into is None:
+        into = (np.zeros(n), np.full(n, -np.inf), np.full(n, np.inf), np.zeros(n, dtype=np.int64), np.zeros(n, dtype=np.int64))
+    tau_max, q_max, q_min, i_max, i_min = into
+    bmax, bmin = q.max(axis=0), q.min(axis=0)
+    up, dn = bmax > q_max, bmin < q_min
+    i_max = np.where(up, offset + np.argmax(q, axis=0), i_max)
+    i_min = np.where(dn, offset + np.argmin(q, axis=0), i_min)
+    return np.maximum(tau_max, np.abs(tau).max(axis=0)), np.maximum(q_max, bmax), np.minimum(q_min, bmin), i_max, i_min
+
+
+def merge_extremes(parts):
+    """The extremes of consecutive row ranges (each from :func:`extremes`), in file order."""
+    tau_max, q_max, q_min, i_max, i_min = (np.array(x, copy=True) for x in parts[0])
+    for t2, qx, qn, ix, jn in parts[1:]:
+        up, dn = np.asarray(qx) > q_max, np.asarray(qn) < q_min
+        i_max, i_min = np.where(up, ix, i_max), np.where(dn, jn, i_min)
+        tau_max, q_max, q_min = np.maximum(tau_max, t2), np.maximum(q_max, qx), np.minimum(q_min, qn)
+    return tau_max, q_max, q_min, i_max, i_min
+
+
+def check_extremes(source: str, joint_names, limit, warnings: list, ext, robot) -> None:
+    """:func:`ident.data.checks.check_plausible` from a log's extremes (:func:`extremes`): the
+    same errors (naming the file's data row) and warnings (appended to `warnings`)."""
+    if robot is None:
+        return
+    tau_max, q_max, q_min, i_max, i_min = ext
+    n = len(joint_names)
+    # two rows per joint hold every extreme the check looks at: the largest |tau| is its own row
+    tau = np.vstack([tau_max, -tau_max])
+    q = np.empty((2, n))
+    q[0], q[1] = q_max, q_min
+    raw = RawLog(source, joint_names, np.arange(2.0), q, None, None, tau, limit, warnings)
+    try:
+        check_plausible(raw, robot)
+    except DataError as exc:
+        # the check names a row of its two-row stand-in: put the file's row back
+        msg = str(exc)
+        for k in range(n):
+            for r, i in ((1, i_max[k]), (2, i_min[k])):
+                tag = f"joint '{joint_names[k]}' position"
+                if tag in msg and f"at data row {r} " in msg:
+                    raise DataError(msg.replace(f"at data row {r} ", f"at data row {int(i) + 1} ")) from None
+        raise
+
+
 class _RawStore:
     """One file's validated raw SI channels on disk, with the reductions the plausibility check needs."""
 
@@ -101,11 +155,7 @@ class _RawStore:
         self.ch = {}
         self.rows = 0
         first = None
-        tau_max = np.zeros(n)
-        q_max = np.full(n, -np.inf)
-        q_min = np.full(n, np.inf)
-        i_max = np.zeros(n, dtype=np.int64)
-        i_min = np.zeros(n, dtype=np.int64)
+        ext = None
         for blocks, (offset, t, arrays) in enumerate(iter_table_blocks(plan, fmt, block), start=1):
             if first is None:
                 first = float(t[0])
@@ -117,13 +167,7 @@ class _RawStore:
                 if arrays[c] is not None:
                     for k, f in enumerate(self.ch[c]):
                         f.append(arrays[c][:, k])
-            tau_max = np.maximum(tau_max, np.abs(arrays["tau"]).max(axis=0))
-            q = arrays["q"]
-            bmax, bmin = q.max(axis=0), q.min(axis=0)
-            up, dn = bmax > q_max, bmin < q_min  # strict: the first row holding the extreme, as argmax gives
-            i_max[up] = offset + np.argmax(q, axis=0)[up]
-            i_min[dn] = offset + np.argmin(q, axis=0)[dn]
-            q_max, q_min = np.maximum(q_max, bmax), np.minimum(q_min, bmin)
+            ext = extremes(arrays["tau"], arrays["q"], offset, ext)
             self.rows = offset + t.shape[0]
             self.t_last = float(t[-1])
             if blocks % 8 == 0:
@@ -133,30 +177,11 @@ class _RawStore:
         for fs in self.ch.values():
             for f in fs or ():
                 f.finish()
-        self._extremes = (tau_max, q_max, q_min, i_max, i_min)
+        self._extremes = ext
 
     def check_plausible(self, robot) -> None:
         """:func:`ident.data.checks.check_plausible` from the streamed extremes (same messages)."""
-        if robot is None:
-            return
-        tau_max, q_max, q_min, i_max, i_min = self._extremes
-        n = len(self.joint_names)
-        # two rows per joint hold every extreme the check looks at: the largest |tau| is its own row
-        tau = np.vstack([tau_max, -tau_max])
-        q = np.empty((2, n))
-        q[0], q[1] = q_max, q_min
-        raw = RawLog(self.source, self.joint_names, np.arange(2.0), q, None, None, tau, self.limit, self.warnings)
-        try:
-            check_plausible(raw, robot)
-        except DataError as exc:
-            # the check names a row of its two-row stand-in: put the file's row back
-            msg = str(exc)
-            for k in range(n):
-                for r, i in ((1, i_max[k]), (2, i_min[k])):
-                    tag = f"joint '{self.joint_names[k]}' position"
-                    if tag in msg and f"at data row {r} " in msg:
-                        raise DataError(msg.replace(f"at data row {r} ", f"at data row {int(i) + 1} ")) from None
-            raise
+        check_extremes(self.source, self.joint_names, self.limit, self.warnings, self._extremes, robot)
 
     def read(self, name: str, a: int, b: int):
         """Rows a..b-1 of "t" (m,) or of a channel (m, n), None when not logged."""
@@ -293,6 +318,89 @@ class _PeriodNoise:
         return var[0], P - 1, var[1]
 
 
+def check_rate(cutoff, dt: float, opts: LogOptions, where: str) -> None:
+    """The cutoff (Hz) must sit below the Nyquist frequency of the step `dt` (s), and a decimation
+    factor must not alias (the low-pass is its anti-alias filter); errors name `where`."""
+    fs = 1.0 / dt
+    if cutoff and cutoff >= 0.5 * fs:
+        hint = f" (a {dt:g} s sample step: time in ms? set time.unit in a log profile)" if dt >= 0.5 else ""
+        raise DataError(f"cutoff: {cutoff:g} Hz is not below the Nyquist frequency {0.5 * fs:g} Hz of {where}{hint}")
+    if opts.decimate > 1:
+        try:
+            cond.decimate(np.zeros(1), opts.decimate, fs, cutoff)
+        except DataError as exc:
+            raise DataError(f"{where}: {exc}") from None
+
+
+def trim_samples(opts: LogOptions, cutoff, fs: float, m: int) -> int:
+    """Samples trimmed at each end of a piece of `m` samples (raises :class:`NotStreamable` when
+    the trims leave too little: the whole-file path then skips the piece with its warning)."""
+    trim = round((opts.trim if opts.trim is not None else 2.0 / cutoff) * fs) if cutoff else round((opts.trim or 0.0) * fs)
+    if 2 * trim + 3 > m:
+        raise NotStreamable("trim longer than the segment")
+    return int(trim)
+
+
+def check_logged(opts: LogOptions, source: str, has_dq: bool, has_ddq: bool, cutoff) -> None:
+    """Refuse options that want logged velocities or accelerations a log does not hold, or
+    derivatives without a cutoff."""
+    if opts.logged_velocity and not has_dq:
+        raise DataError(f"{source}: logged_velocity is set but the log has no velocity")
+    if opts.logged_acceleration and not has_ddq:
+        raise DataError(f"{source}: logged_acceleration is set but the log has no acceleration")
+    need = not (opts.logged_velocity and has_dq) or not (opts.logged_acceleration and has_ddq)
+    if need and cutoff is None:
+        raise DataError("no low-pass cutoff: give cutoff (Hz), or the excitation's max_frequency or period and harmonics, or cutoff 0 for no filtering")
+
+
+def piece_zones(plan: JointPlan, read_col, s: int, n: int, thresholds=None) -> list[tuple[float, float]]:
+    """Per joint the (slow-zone, noise-zone) velocities of the piece starting at row `s`, from
+    its first :data:`STAT_SAMPLES` samples filtered with the look-ahead they need;
+    ``read_col(channel, k, a, b)`` reads rows of one joint's raw channel. `thresholds` (n,)
+    collects the largest slow-zone velocity per joint."""
+    m = plan.m
+    S = min(m, STAT_SAMPLES)
+    w = min(m, S + overlap(plan))
+    zones = []
+    for k in range(n):
+        _, v, v_sign, a_ = plan.signals(*(read_col(c, k, s, s + w) for c in ("q", "dq", "ddq")))
+        thr, still = plan.thresholds(v[:S], v_sign[:S], a_[:S])
+        if thresholds is not None:
+            thresholds[k] = max(thresholds[k], thr)
+        zones.append((thr, still))
+        del v, v_sign, a_
+    return zones
+
+
+def condition_rows(plan: JointPlan, win: dict, rows: np.ndarray, zones) -> tuple[dict, np.ndarray, np.ndarray, np.ndarray]:
+    """Condition a window of a piece's raw rows and keep the rows `rows` (indices into the
+    window): ``({q, dq, ddq, tau: (k, n)}, slow (k, n), stuck (k, n), dry (k, n, 4))``. The window
+    must reach :func:`overlap` samples beyond the kept rows on each side (or the piece's end)
+    for the result to equal the whole piece's (module notes). win : {channel: (w, n) or None}."""
+
+    def col(x, k):
+        return None if x is None else np.ascontiguousarray(x[:, k])
+
+    n = win["q"].shape[1]
+    k_out = rows.shape[0]
+    out = {c: np.empty((k_out, n)) for c in CHANNELS}
+    slow = np.empty((k_out, n), dtype=bool)
+    stuck = np.empty((k_out, n), dtype=bool)
+    dry = np.empty((k_out, n, 4))
+    for k in range(n):
+        qf, v, v_sign, a_ = plan.signals(col(win["q"], k), col(win["dq"], k), col(win["ddq"], k))
+        flag, stuck_k = plan.flags(v, v_sign, *zones[k])
+        out["q"][:, k] = qf[rows]
+        out["dq"][:, k] = v[rows]
+        out["ddq"][:, k] = a_[rows]
+        slow[:, k] = flag[rows]
+        stuck[:, k] = stuck_k[rows]
+        plan.dry_signals(v_sign, dry, k, rows)
+        out["tau"][:, k] = plan.filt(col(win["tau"], k))[rows]
+        del qf, v, v_sign, a_
+    return out, slow, stuck, dry
+
+
 def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, joint_names, warnings, counts,
                      noise, thresholds, out_files: dict, block: int = BLOCK) -> list:
     """Condition the uniform piece rows s..e-1 of a stored file in overlapping blocks; equals
@@ -312,14 +420,7 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
         seg = Segment(raw.source, *(raw.read(c, s, e) for c in ("t",) + CHANNELS))
         return condition_segment(seg, raw.limit, opts, cutoff, joint_names, warnings, counts, noise, thresholds)
     where = f"{raw.source} (t = {t0:.6g}..{t1:.6g} s)"
-    if cutoff and cutoff >= 0.5 * fs:
-        hint = f" (a {dt:g} s sample step: time in ms? set time.unit in a log profile)" if dt >= 0.5 else ""
-        raise DataError(f"cutoff: {cutoff:g} Hz is not below the Nyquist frequency {0.5 * fs:g} Hz of {where}{hint}")
-    if opts.decimate > 1:
-        try:
-            cond.decimate(np.zeros(1), opts.decimate, fs, cutoff)
-        except DataError as exc:
-            raise DataError(f"{where}: {exc}") from None
+    check_rate(cutoff, dt, opts, where)
     # clipped torques: flagged on the raw channel, where the saturation is exact (first pass over tau)
     clip_runs: list[list[int]] = []
     if opts.drop_clipped and np.any(np.isfinite(raw.limit)):
@@ -344,14 +445,9 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
         clip_runs = _merge_runs(clip_runs)
     pnoise = None
     if opts.period:
-        L = opts.period * fs
-        Li = round(L)
-        if abs(L - Li) > 1e-3 * max(1.0, L) or Li < 4:
-            raise DataError(f"period: {opts.period:g} s is not a whole number of samples at {fs:g} Hz ({L:.6g}); resample or fix the period")
+        Li = period_samples(opts.period, fs)
         pnoise = _PeriodNoise(Li, m // Li, clip_runs, n)
-    trim = round((opts.trim if opts.trim is not None else 2.0 / cutoff) * fs) if cutoff else round((opts.trim or 0.0) * fs)
-    if 2 * trim + 3 > m:
-        raise NotStreamable("trim longer than the segment")
+    trim = trim_samples(opts, cutoff, fs, m)
     base = (0, m)
     if trim:
         base = (trim, m - trim)
@@ -369,26 +465,8 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
         return []
     counts["decimated"] += sum(b - a for a, b in runs) - sum(sel)
     allsel = np.concatenate([np.arange(a, b, opts.decimate) for a, b in runs])
-    if opts.logged_velocity and raw.ch["dq"] is None:
-        raise DataError(f"{raw.source}: logged_velocity is set but the log has no velocity")
-    if opts.logged_acceleration and raw.ch["ddq"] is None:
-        raise DataError(f"{raw.source}: logged_acceleration is set but the log has no acceleration")
-    if (need_dq or need_ddq) and cutoff is None:
-        raise DataError("no low-pass cutoff: give cutoff (Hz), or the excitation's max_frequency or period and harmonics, or cutoff 0 for no filtering")
-
-    def col(x, k):
-        return None if x is None else np.ascontiguousarray(x[:, k])
-
-    # slow-zone statistics from the first STAT_SAMPLES samples, filtered with the look-ahead they need
-    S = min(m, STAT_SAMPLES)
-    w = min(m, S + ov)
-    zones = []
-    for k in range(n):
-        _, v, v_sign, a_ = plan.signals(*(raw.read_col(c, k, s, s + w) for c in ("q", "dq", "ddq")))
-        thr, still = plan.thresholds(v[:S], v_sign[:S], a_[:S])
-        thresholds[k] = max(thresholds[k], thr)
-        zones.append((thr, still))
-        del v, v_sign, a_
+    check_logged(opts, raw.source, raw.ch["dq"] is not None, raw.ch["ddq"] is not None, cutoff)
+    zones = piece_zones(plan, raw.read_col, s, n, thresholds)
     start = out_files["t"].rows
     n_slow = n_stuck = 0
     for c0 in range(0, m, block):
@@ -399,22 +477,7 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
         win = {c: raw.read(c, s + w0, s + w1) for c in CHANNELS}
         if pnoise is not None:
             pnoise.add(win["q"][c0 - w0 : c1 - w0], win["tau"][c0 - w0 : c1 - w0])
-        k_out = hi - lo
-        out = {c: np.empty((k_out, n)) for c in CHANNELS}
-        slow = np.empty((k_out, n), dtype=bool)
-        stuck = np.empty((k_out, n), dtype=bool)
-        dry = np.empty((k_out, n, 4))
-        for k in range(n):
-            qf, v, v_sign, a_ = plan.signals(col(win["q"], k), col(win["dq"], k), col(win["ddq"], k))
-            flag, stuck_k = plan.flags(v, v_sign, *zones[k])
-            out["q"][:, k] = qf[rows]
-            out["dq"][:, k] = v[rows]
-            out["ddq"][:, k] = a_[rows]
-            slow[:, k] = flag[rows]
-            stuck[:, k] = stuck_k[rows]
-            plan.dry_signals(v_sign, dry, k, rows)
-            out["tau"][:, k] = plan.filt(col(win["tau"], k))[rows]
-            del qf, v, v_sign, a_
+        out, slow, stuck, dry = condition_rows(plan, win, rows, zones)
         n_slow += int(slow.sum())
         n_stuck += int(stuck.sum())
         out_files["t"].append(raw.read("t", s + c0, s + c1)[allsel[lo:hi] - c0])

@@ -8,6 +8,7 @@ Default table convention (no profile needed): a column ``time`` in seconds and, 
 from __future__ import annotations
 
 import csv
+import io
 import re
 from pathlib import Path
 
@@ -221,6 +222,107 @@ def iter_table_blocks(plan: TablePlan, fmt: str, rows: int):
         check_times(np.array([last]), str(path), "row")
 
 
+#: Data rows between two entries of a CSV row index (:func:`csv_row_index`).
+INDEX_ROWS = 1 << 12
+
+
+class CsvIndex:
+    """Byte offsets of a CSV log's rows: ``starts[j]`` is where data row ``j * every`` begins,
+    ``header`` the header line's bytes, ``rows`` the data rows, ``size`` the file's bytes."""
+
+    def __init__(self, header: bytes, starts: list[int], every: int, rows: int, size: int):
+        self.header, self.starts, self.every, self.rows, self.size = header, starts, int(every), int(rows), int(size)
+
+
+def csv_row_index(path: Path, every: int = INDEX_ROWS, read_bytes: int = 1 << 24) -> CsvIndex | str:
+    """Scan a CSV log's bytes once for line ends and index every `every`-th data row, or say why
+    its rows cannot be found by line ends alone (a quote character, which may hide a line break in
+    a field, or an empty line, which the reader skips): then it is read whole."""
+    import numpy as np
+
+    starts, ends_seen, prev_end, pos, last = [], 0, -1, 0, b""
+    with open(path, "rb") as fh:
+        while True:
+            buf = fh.read(read_bytes)
+            if not buf:
+                break
+            if b'"' in buf:
+                return "a quote character (a field may hold a line break)"
+            raw = np.frombuffer(buf, dtype=np.uint8)
+            ends = np.flatnonzero(raw == 10) + pos
+            if ends.size:
+                gaps = np.diff(np.concatenate([[prev_end], ends]))
+                # an empty line: a line end right after another, or after one and a carriage return
+                cr = np.array([(buf[e - pos - 1:e - pos] if e - 1 >= pos else last) == b"\r" for e in ends[gaps == 2]], bool)
+                if np.any(gaps == 1) or cr.any():
+                    return "an empty line"
+                number = ends_seen + 1 + np.arange(ends.size)  # 1-based count of each line end
+                # data row r starts after line end r + 1 (line end 1 closes the header)
+                starts += [int(e) + 1 for e in ends[(number >= 2) & ((number - 1) % every == 0)]]
+                ends_seen += ends.size
+                prev_end = int(ends[-1])
+            pos += len(buf)
+            last = buf[-1:]
+    if ends_seen == 0:
+        return "no line end after the header"
+    with open(path, "rb") as fh:
+        header = fh.readline()
+    rows = ends_seen - 1 + (last != b"\n")  # a last line without its line end is a row too
+    starts = [len(header)] + [x for x in starts if x < pos][: max(0, (rows - 1) // every)]
+    return CsvIndex(header, starts, every, rows, pos)
+
+
+def read_table_rows(plan: TablePlan, fmt: str, a: int, b: int, index: CsvIndex | None = None):
+    """Data rows ``a..b-1`` of a CSV or Parquet log, validated as :meth:`TablePlan.convert` does
+    (errors name file, column and the file's own data row, times must increase): ``(t, arrays)``.
+
+    Parquet reads only the row groups that overlap the range (from the file's footer); CSV reads
+    only the bytes between the indexed rows around the range (`index` from :func:`csv_row_index`)."""
+    path, cols = plan.path, plan.columns
+    try:
+        if fmt == "parquet":
+            import pyarrow.parquet as pq
+
+            pf = pq.ParquetFile(path, pre_buffer=False)
+            md = pf.metadata
+            first, groups, r0 = None, [], 0
+            for g in range(md.num_row_groups):
+                r1 = r0 + md.row_group(g).num_rows
+                if r1 > a and r0 < b:
+                    groups.append(g)
+                    first = r0 if first is None else first
+                r0 = r1
+            tbl = pf.read_row_groups(groups, columns=cols).slice(a - first, b - a)
+        else:
+            import pyarrow as pa
+            import pyarrow.csv as pacsv
+
+            j0, j1 = a // index.every, -(-b // index.every)
+            lo = index.starts[j0]
+            hi = index.starts[j1] if j1 < len(index.starts) else index.size
+            with open(path, "rb") as fh:
+                fh.seek(lo)
+                body = fh.read(hi - lo)
+            try:
+                tbl = pacsv.read_csv(io.BytesIO(index.header + body), convert_options=pacsv.ConvertOptions(
+                    include_columns=cols, column_types={c: pa.float64() for c in cols}, strings_can_be_null=True))
+            except Exception:  # the slow diagnosis names the row, in the file's numbering
+                detail = _diagnose_csv(path, cols, (index.header + body).decode("utf-8", "replace"), j0 * index.every + 1)
+                if detail:
+                    raise DataError(detail) from None
+                raise
+            tbl = tbl.slice(a - j0 * index.every, b - a)
+    except DataError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - pyarrow's own error types: name the file, keep one line
+        raise DataError(f"{path}: cannot read as {fmt} ({first_line(exc)})") from None
+    if tbl.num_rows != b - a:
+        raise DataError(f"{path}: expected data rows {a + 1}..{b}, found {tbl.num_rows} rows there")
+    t, arrays = plan.convert(lambda c: tbl.column(c), b - a, a)
+    check_times(t, str(path), "row", a)
+    return t, arrays
+
+
 class _column_source:
     """Reads named columns of a table one at a time (Parquet) or from one parse (CSV)."""
 
@@ -262,14 +364,16 @@ class _column_source:
         return col
 
 
-def _diagnose_csv(path: Path, columns: list[str]) -> str | None:
-    """After a failed fast parse, find the first offending row and column (slow, error path only)."""
+def _diagnose_csv(path: Path, columns: list[str], text: str | None = None, first_row: int = 1) -> str | None:
+    """After a failed fast parse, find the first offending row and column (slow, error path only).
+    `text`: a header line and some data lines of the file to look at instead of the whole file,
+    the first of them being data row `first_row`."""
     try:
-        with open(path, newline="", encoding="utf-8") as fh:
+        with (io.StringIO(text, newline="") if text is not None else open(path, newline="", encoding="utf-8")) as fh:
             rd = csv.reader(fh)
             header = [h.strip() for h in next(rd)]
             idx = {c: header.index(c) for c in columns if c in header}
-            for row_no, row in enumerate(rd, start=1):
+            for row_no, row in enumerate(rd, start=first_row):
                 if not row:
                     continue
                 if len(row) != len(header):

@@ -109,10 +109,20 @@ class BlockStore:
         if len(self.blocks) > self.max_blocks:
             self._halve()
 
-    def extend(self, other: "BlockStore") -> None:
+    def extend(self, other: "BlockStore", join: bool = False) -> None:
         """Append another store's blocks (copies of the arrays) one at a time, applying the cap at
-        each, so a store built from parts groups its blocks exactly as one built in a single pass."""
-        for tri, r, s in zip(other.blocks, other.rows, other.seconds):
+        each, so a store built from parts groups its blocks exactly as one built in a single pass.
+
+        join : the other store's first block is the rest of this store's last block (a block cut
+        where two parts of a segment meet): it is merged into it (its group, when the cap has
+        merged that block already, which is where a single pass puts the whole block)."""
+        items = list(zip(other.blocks, other.rows, other.seconds))
+        if join and items and self.blocks:
+            tri, r, s = items.pop(0)
+            self.blocks[-1] = [merge_triangles(a, b) for a, b in zip(self.blocks[-1], tri)]
+            self.rows[-1] = self.rows[-1] + np.asarray(r, dtype=np.int64)
+            self.seconds[-1] = self.seconds[-1] + float(s)
+        for tri, r, s in items:
             self.append([t.copy() for t in tri], r, s)
 
     def _halve(self) -> None:

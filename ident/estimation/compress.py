@@ -494,17 +494,19 @@ class Compressor:
         est_w = _EPS * p * kw**2 * np.linalg.norm(Dw * (bw - center)) / max(np.linalg.norm(Dw * bw), 1e-300)
         return bool(max(est, est_w) <= GRAM_TOL)
 
-    def merge(self, other: "Compressor") -> "Compressor":
+    def merge(self, other: "Compressor", join: bool = False) -> "Compressor":
         """Fold another compressor's triangles (same robot, terms and base set) into this one.
 
-        Its time blocks are appended after this one's (both must keep blocks, or the result keeps none).
+        Its time blocks are appended after this one's (both must keep blocks, or the result keeps
+        none); `join`: its first block continues this one's last (see
+        :meth:`ident.estimation.blocks.BlockStore.extend`).
         """
         if other.base.names != self.base.names or other.robot.joint_names != self.robot.joint_names:
             raise IdentError("cannot merge compressed data of different models or base sets")
         for j in range(self.robot.n):
             self.triangles[j] = merge_triangles(self.triangles[j], other.triangles[j])
         if self.blocks is not None and other.blocks is not None:
-            self.blocks.extend(other.blocks)
+            self.blocks.extend(other.blocks, join)
         else:
             self.blocks = None
         self.samples += other.samples

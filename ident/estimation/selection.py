@@ -75,7 +75,8 @@ def choice_stride(total: int, max_rows: int = MAX_ROWS) -> int:
     return max(1, int(np.ceil(total / max_rows)))
 
 
-def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: int = FOLDS, into: dict | None = None) -> dict:
+def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: int = FOLDS, into: dict | None = None,
+                 spans=None) -> dict:
     """The held-out folds of some segments for every candidate: {terms: [Compressor] * folds}.
 
     segs : :class:`ident.estimation.compress.SegmentData` records; stride : from
@@ -83,22 +84,31 @@ def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: 
     before these, to continue (then `candidates` and `folds` are theirs): folding all segments
     this way, part after part, gives bit for bit the folds of :func:`choose_terms`. Parts of
     different segments folded apart (e.g. on different machines) combine with :func:`merge_parts`
-    (equal up to rounding).
+    (equal up to rounding). spans : per segment None, or ``(offset, total)`` when the segment is
+    rows ``offset..`` of a segment of `total` samples cut into parts (each part then gets its
+    share of that segment's strided samples and folds; the parts' folds merged in order give the
+    whole segment's).
     """
     if into is not None:
         folds = len(next(iter(into.values())))
     # the strided samples of each segment, read once (a segment on disk is read by rows)
     subs = []
-    for seg in segs:
-        idx = np.arange(0, segment_rows(seg), stride)
-        if idx.size < folds:
+    for seg, span in zip(segs, spans or [None] * len(segs)):
+        m = segment_rows(seg)
+        off, total = span or (0, m)
+        whole = np.arange(0, total, stride)
+        if whole.size < folds:
             continue
+        lo, hi = np.searchsorted(whole, [off, off + m])
+        idx = whole[lo:hi] - off
+        # fold f of the whole segment's strided samples, as far as this part holds it
+        cuts = [(max(lo, f[0]) - lo, min(hi, f[-1] + 1) - lo) for f in np.array_split(np.arange(whole.size), folds)]
         if stored_segment(seg):
             part = seg.take(idx)
-            subs.append((seg.source, part.q, part.dq, part.ddq, part.tau, part.stuck, part.dry))
+            subs.append((seg.source, part.q, part.dq, part.ddq, part.tau, part.stuck, part.dry, cuts))
         else:
             subs.append((seg.source, seg.q[idx], seg.dq[idx], seg.ddq[idx], seg.tau[idx],
-                         None if seg.stuck is None else seg.stuck[idx], None if seg.dry is None else seg.dry[idx]))
+                         None if seg.stuck is None else seg.stuck[idx], None if seg.dry is None else seg.dry[idx], cuts))
     out = {}
     with single_thread_blas():
         for terms in (list(into) if into is not None else [parse_terms(c) for c in candidates]):
@@ -106,10 +116,13 @@ def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: 
                 comps = into[terms]
             else:
                 comps = [Compressor(robot, terms, base_parameters(robot, terms), keep_blocks=False) for _ in range(folds)]
-            for source, q, dq, ddq, tau, stuck, dry in subs:
+            for source, q, dq, ddq, tau, stuck, dry, cuts in subs:
                 keep = None if stuck is None else ~stuck
                 cols = None if dry is None else term_columns(terms, dq, ddq, dry)
-                for f, sl in enumerate(np.array_split(np.arange(q.shape[0]), folds)):
+                for f, (a, b) in enumerate(cuts):
+                    if b <= a:
+                        continue
+                    sl = slice(a, b)
                     comps[f].add(q[sl], dq[sl], ddq[sl], tau[sl], source=source,
                                  keep=None if keep is None else keep[sl], term_signals=None if cols is None else cols[sl])
             out[terms] = comps

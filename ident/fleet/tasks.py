@@ -2,7 +2,13 @@
 
 Map (per log, on the worker that reads it): :func:`condition_log` (read and condition one log,
 with the cutoff of the period's first log as ``ident fit`` chooses it; the data set stays in that
-worker's memory), :func:`describe_log` (the few numbers the plan needs),
+worker's memory; a CSV or Parquet log longer than :data:`CHUNK_ROWS` rows -- the job's
+``chunk_rows`` -- gives instead the head of :func:`ident.data.chunks.read_head`, read from the
+head of the file only), :func:`condition_chunk` (one row range of such a log, read, validated and
+conditioned by whichever worker runs it, its samples kept in that worker's memory),
+:func:`settle_log` (the chunks' facts judged over the whole log: the plausibility check, and
+whether a gap, irregular sampling or clipped torques send the log back to :func:`condition_log`
+whole), :func:`describe_log` (the few numbers the plan needs),
 :func:`choice_parts_of` (the held-out folds for the friction-term choice) and
 :func:`compress_stretch` (one stretch of a segment, a whole number of time blocks, into per-joint
 triangles). Reduce (per arm and period): :func:`choose_period_terms` and :func:`fit_period`.
@@ -12,7 +18,10 @@ Only compressed triangles and small summaries leave a worker; raw samples never 
 time blocks, so one long log spreads over several workers. Folding the stretches and merging them
 in time order gives the same per-block triangles, the same block grouping (the memory cap is
 applied block by block, :meth:`ident.estimation.blocks.BlockStore.extend`) and the same term
-choice as ``ident fit`` on the period's logs, up to rounding.
+choice as ``ident fit`` on the period's logs, up to rounding. A chunked log is one segment whose
+rows sit in several chunks: its time blocks are those of the whole segment, cut where two chunks
+meet (the two halves of such a block are compressed on their own workers and joined when the
+stretches merge), and its term-choice folds are the whole segment's (:func:`chunk_spans`).
 
 A log that cannot be read or conditioned gives a :class:`Failed` record (its name and the error
 line) instead of an exception, so the rest of its period carries on without it.
@@ -29,7 +38,9 @@ import numpy as np
 from ..arm.base import base_parameters
 from ..arm.loader import load_robot
 from ..arm.model import DRY_FRICTION_TERMS, parse_terms
-from ..data.load import load_dataset
+from ..data.chunks import CHUNK_ROWS, ChunkHead, read_head, settle
+from ..data.chunks import condition_chunk as _condition_chunk
+from ..data.load import load_dataset, options_record
 from ..errors import first_line
 from ..estimation.blocks import MAX_BLOCKS, block_length, block_ranges
 from ..estimation.compress import Compressor, add_segment, iter_segments
@@ -53,12 +64,15 @@ class Failed:
 
 @dataclass
 class LogJob:
-    """What a worker needs for one log: path or URL, description, profile, conditioning options."""
+    """What a worker needs for one log: path or URL, description, profile, conditioning options,
+    and the length above which a table log is cut into chunks (rows; None: :data:`CHUNK_ROWS`,
+    0: never)."""
 
     log: str
     description: str
     profile: str | None
     options: dict = field(default_factory=dict)
+    chunk_rows: int | None = None
 
 
 def robot_of(description: str):
@@ -81,14 +95,16 @@ def base_of(description: str, terms):
     return _BASES[key]
 
 
-def condition_log(job: LogJob, first=None):
-    """Read and condition one log: a Dataset, or :class:`Failed`.
+def condition_log(job: LogJob, first=None, whole: bool = False):
+    """Read and condition one log: a Dataset, a :class:`ident.data.chunks.ChunkHead` (a table log
+    longer than the job's chunk length, to be conditioned by :func:`condition_chunk` tasks), or
+    :class:`Failed`.
 
     first : None for the period's first log (its cutoff is chosen from its own data, or given in
     the options, as :func:`ident.data.load.load_dataset` chooses it on its first file), else the
-    :func:`describe_log` summary of the first log, whose cutoff this log then uses (so the period
-    is conditioned as one ``load_dataset`` call over its logs). If the first log failed, this one
-    chooses its own.
+    settled summary of the first log, whose cutoff this log then uses (so the period is
+    conditioned as one ``load_dataset`` call over its logs). If the first log failed, this one
+    chooses its own. whole : never cut into chunks (the fallback of a log its chunks cannot take).
     """
     cutoff = None
     if isinstance(first, dict) and "failed" not in first:
@@ -97,25 +113,89 @@ def condition_log(job: LogJob, first=None):
         opts = dict(job.options)
         if cutoff is not None:
             opts["cutoff"] = cutoff
-        return load_dataset([job.log], robot_of(job.description), job.profile, opts)
+        robot = robot_of(job.description)
+        why = None
+        if not whole:
+            head, why = read_head(job.log, robot, job.profile, opts, CHUNK_ROWS if job.chunk_rows is None else job.chunk_rows)
+            if head is not None:
+                return head
+        data = load_dataset([job.log], robot, job.profile, opts)
+        if why:
+            data.info["whole"] = why
+        return data
     except Exception as exc:  # noqa: BLE001 - any failure of one log is reported, not fatal
         return Failed(job.log, first_line(exc))
 
 
+def condition_chunk(head: ChunkHead, i: int):
+    """Read, validate and condition chunk `i` of a long log (:func:`ident.data.chunks.condition_chunk`):
+    a data set of the chunk's samples, kept in this worker's memory, or :class:`Failed`."""
+    try:
+        data = _condition_chunk(head, i)
+    except Exception as exc:  # noqa: BLE001 - a bad row in the chunk fails its log, not the run
+        return Failed(head.source, first_line(exc))
+    data.info["chunk"]["worker"] = _worker()
+    return data
+
+
+def _worker() -> str | None:
+    try:
+        from distributed import get_worker
+
+        return get_worker().address
+    except (ImportError, ValueError):  # not inside a Dask worker: the plain loop
+        return None
+
+
 def describe_log(data) -> dict:
-    """The plan's view of a conditioned log: segment sizes and steps, warnings; or the failure."""
+    """The plan's view of a conditioned log: segment sizes and steps, warnings; or the failure;
+    for a chunk head the head (``head``), for a chunk its facts (``chunk``)."""
     if isinstance(data, Failed):
         return {"failed": data}
+    if isinstance(data, ChunkHead):
+        # the head itself: a few numbers per joint, the column plan and the row index, no samples;
+        # the chunk tasks get it as a value, so the scheduler spreads them like independent tasks
+        return {"head": data, "cutoff": data.cutoff, "options": options_record(data.opts)}
     segs = data.segments
-    return {"sizes": [s.n_samples for s in segs], "steps": [s.dt for s in segs if s.t is not None and s.n_samples > 1],
-            "sources": [str(s.source) for s in segs], "warnings": list(data.warnings), "samples": data.n_samples,
-            "cutoff": data.info.get("cutoff"), "options": data.info.get("options", {})}
+    out = {"sizes": [s.n_samples for s in segs], "steps": [s.dt for s in segs if s.t is not None and s.n_samples > 1],
+           "sources": [str(s.source) for s in segs], "warnings": list(data.warnings), "samples": data.n_samples,
+           "cutoff": data.info.get("cutoff"), "options": data.info.get("options", {})}
+    if "chunk" in data.info:
+        out["chunk"] = data.info["chunk"]
+    if data.info.get("whole"):
+        name = short_name(data.info["files"][0]["path"])
+        out["notes"] = [f"{name}: read and conditioned whole by one worker (not cut into chunks: {data.info['whole']})"]
+    return out
+
+
+def settle_log(description: str, head: ChunkHead, *chunks: dict) -> dict:
+    """A long log's summary from its chunks' :func:`describe_log` summaries (in file order): one
+    segment made of the chunks' samples (``parts``: samples per chunk), the plausibility check
+    of the whole log; or ``{"fallback": reason}`` when it must be conditioned whole
+    (:func:`ident.data.chunks.settle`), or the first chunk's failure."""
+    for c in chunks:
+        if "failed" in c:
+            return c
+    try:
+        warnings, why = settle(head, [c["chunk"] for c in chunks], robot_of(description))
+    except Exception as exc:  # noqa: BLE001
+        return {"failed": Failed(head.source, first_line(exc))}
+    if why:
+        return {"fallback": why, "note": f"{short_name(head.source)}: read and conditioned whole by one worker (not cut into chunks: {why})"}
+    steps = [c["chunk"]["step"] for c in chunks if c["chunk"]["step"] is not None]
+    parts = [c["chunk"]["samples"] for c in chunks]
+    total = int(sum(parts))
+    return {"sizes": [total] if total else [], "parts": parts, "steps": [float(np.median(steps))] if steps else [],
+            "sources": [head.source] if total else [], "warnings": warnings, "samples": total, "cutoff": head.cutoff,
+            "options": options_record(head.opts), "workers": [c["chunk"].get("worker") for c in chunks]}
 
 
 @dataclass
 class Plan:
     """How a period's good logs are cut into work: block length (samples), sample step (s),
-    term-choice stride, and per log a list of stretches ``(segment, start, stop, ranges)``."""
+    term-choice stride, and per log a list of stretches ``(part, segment, start, stop, ranges,
+    joined)``: `part` the chunk holding it (0 for a log conditioned whole), `joined` when its
+    first block is the rest of the previous stretch's last (a block cut where two chunks meet)."""
 
     block: int
     dt: float | None
@@ -138,19 +218,33 @@ def plan_period(summaries: list[dict], stretch_blocks: int = STRETCH_BLOCKS) -> 
         mine = []
         for k, n in enumerate(s["sizes"]):
             ranges = block_ranges(n, L)
-            for g in range(0, len(ranges), stretch_blocks):
-                part = ranges[g : g + stretch_blocks]
-                a, b = part[0][0], part[-1][1]
-                mine.append((k, a, b, [(x - a, y - a) for x, y in part]))
+            cuts = [(0, 0, n)] if "parts" not in s else [(i, o, o + c) for i, (o, c) in enumerate(zip(np.cumsum([0] + s["parts"][:-1]), s["parts"])) if c]
+            for part, o, e in cuts:  # the segment's blocks, cut where its chunks meet
+                own = [(max(x, o) - o, min(y, e) - o, x < o) for x, y in ranges if y > o and x < e]
+                for g in range(0, len(own), stretch_blocks):
+                    grp = own[g : g + stretch_blocks]
+                    a, b = grp[0][0], grp[-1][1]
+                    mine.append((part, k, a, b, [(x - a, y - a) for x, y, _ in grp], bool(g == 0 and grp[0][2])))
         plan.append(mine)
     return Plan(L, dt, choice_stride(total), total, plan)
 
 
-def choice_parts_of(data, description: str, stride: int, into: dict | None = None) -> dict:
+def chunk_spans(summary: dict) -> list:
+    """Per chunk of a log its ``(offset, total)`` in the log's one segment (see
+    :func:`ident.estimation.selection.choice_parts`); [None] for a log conditioned whole."""
+    if "parts" not in summary:
+        return [None]
+    total = int(sum(summary["parts"]))
+    return [(int(o), total) for o in np.cumsum([0] + summary["parts"][:-1])]
+
+
+def choice_parts_of(data, description: str, stride: int, into: dict | None = None, span=None) -> dict:
     """Held-out folds of one conditioned log for every candidate friction model (small triangles),
-    continuing the folds `into` of the period's earlier logs when given (the exact mode)."""
+    continuing the folds `into` of the period's earlier logs when given (the exact mode); for a
+    chunk, `span` is its ``(offset, total)`` in the log's segment (:func:`chunk_spans`)."""
     robot = robot_of(description)
-    return choice_parts(robot, list(iter_segments(robot, data, with_slow=True)), stride, into=into)
+    segs = list(iter_segments(robot, data, with_slow=True))
+    return choice_parts(robot, segs, stride, into=into, spans=None if span is None else [span] * len(segs))
 
 
 def choose_period_terms(description: str, total: int, stride: int, *parts):
@@ -205,8 +299,9 @@ class PeriodFit:
 
 
 def fit_period(description: str, terms, method: str, fit_options: dict, block: int, sources: list[str], logs: list[str],
-               warnings: list[str], options: dict, *parts) -> PeriodFit:
-    """Merge a period's compressed stretches in time order and fit: the reduce step."""
+               warnings: list[str], options: dict, *parts, joins=None) -> PeriodFit:
+    """Merge a period's compressed stretches in time order and fit: the reduce step. joins : per
+    part, True when its first block continues the previous part's last (:class:`Plan`)."""
     import warnings as _w
 
     choice = terms if hasattr(terms, "terms") else None
@@ -217,8 +312,8 @@ def fit_period(description: str, terms, method: str, fit_options: dict, block: i
     else:
         comp = Compressor(robot, terms, base_of(description, terms), keep_blocks=all(p.blocks is not None for p in parts),
                           max_blocks=MAX_BLOCKS)
-        for p in parts:
-            comp.merge(p)
+        for p, j in zip(parts, joins or [False] * len(parts)):
+            comp.merge(p, j)
     comp.block = int(block)
     comp.sources = list(sources)
     with _w.catch_warnings():
