@@ -269,3 +269,39 @@ def test_unreachable_scheduler(capsys, tmp_path):
     p = _catalog(tmp_path, [["a1", "2026-01-05", "x.parquet", str(QUAD4)]])
     err = _bad(capsys, tmp_path, p, "--scheduler", "tcp://127.0.0.1:9", "--connect-timeout", "2")
     assert "tcp://127.0.0.1:9" in err and "cannot reach" in err
+
+
+def test_fleet_with_locked_joints_equals_ident_fit(tmp_path, cluster):
+    # a 7-joint arm with a two-finger hand (example-robot-data's Panda): the logs carry the arm's
+    # joints only, so the fleet, as `ident fit`, must lock the fingers; the reference is `ident fit`
+    # with the same --lock on the same logs
+    from conftest import PANDA, PANDA_FINGERS_LOCKED, erd_path
+
+    urdf = erd_path(PANDA)
+    spec = FleetSpec(arms=1, periods=1, period=3.0, harmonics=2, cycles=3, seed=4)
+    made = make_fleet(tmp_path / "hands", urdf, spec, selection={"locked": PANDA_FINGERS_LOCKED})
+    lock = ",".join(f"{k}={v}" for k, v in PANDA_FINGERS_LOCKED.items())
+    log = str(tmp_path / "hands" / pd.read_csv(made["catalog"])["log"].iloc[0])
+    excitation = str(tmp_path / "hands" / "coefficients.yaml")
+    ref = tmp_path / "ref.yaml"
+    assert main(["fit", str(urdf), log, "--lock", lock, "--excitation", excitation, "--terms", "fv,fc", "--out", str(ref), "--quiet"]) == 0
+    out = tmp_path / "out"
+    status, _, err = _ident("fleet", made["catalog"], "--lock", lock, "--terms", "fv,fc", "--out", out,
+                            "--scheduler", cluster.scheduler_address, "--quiet")
+    assert status == 0, err
+    a = yaml.safe_load(ref.read_text())
+    b = yaml.safe_load((out / "params" / "arm01.yaml").read_text())
+    assert b["context"]["locked"] == PANDA_FINGERS_LOCKED and len(b["joints"]) == 7
+    ra = {r["name"]: r["value"] for r in a["base_parameters"]}
+    rb = {r["name"]: r["value"] for r in b["base_parameters"]}
+    assert ra.keys() == rb.keys()
+    np.testing.assert_allclose([rb[n] for n in ra], [ra[n] for n in ra], rtol=1e-10, atol=0)
+    # without the lock the description itself is refused before any work (its second finger
+    # mimics the first), in one line that names the joint and says what to do
+    status, _, err = _ident("fleet", made["catalog"], "--terms", "fv,fc", "--out", tmp_path / "none", "--scheduler", cluster.scheduler_address,
+                            "--quiet")
+    assert status == 2 and "panda_finger_joint2" in err and "lock it" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "none").exists()
+    # a lock on a joint the description does not have is a bad input, refused before any work
+    status, _, err = _ident("fleet", made["catalog"], "--lock", f"{lock},wrist9=0", "--out", tmp_path / "bad", "--scheduler", cluster.scheduler_address)
+    assert status == 2 and "wrist9" in err and not (tmp_path / "bad").exists()

@@ -52,11 +52,17 @@ def parse_vector(text: str, option: str, size: int) -> np.ndarray:
     return vals
 
 
-def robot_from_args(args: argparse.Namespace) -> Robot:
-    """Load the robot named by the options of :func:`add_robot_arguments`."""
+def selection_from_args(args: argparse.Namespace) -> dict:
+    """The joint selection of --joints, --lock and --gravity as :func:`ident.arm.loader.load_robot`
+    keywords: joints (list or None), locked ({name: rad or m}), gravity ((3,) m/s^2 or None)."""
     joints = _split(args.joints) or None
     gravity = parse_vector(args.gravity, "--gravity", 3) if args.gravity else None
-    return load_robot(args.robot, joints=joints, locked=parse_locks(args.lock), gravity=gravity)
+    return {"joints": joints, "locked": parse_locks(args.lock), "gravity": gravity}
+
+
+def robot_from_args(args: argparse.Namespace) -> Robot:
+    """Load the robot named by the options of :func:`add_robot_arguments`."""
+    return load_robot(args.robot, **selection_from_args(args))
 
 
 def add_terms_argument(parser: argparse.ArgumentParser, default: str = "fv,fc,ia", auto: bool = False) -> None:

@@ -15,8 +15,8 @@ from ..fleet.drift import ALARM, BASELINE_PERIODS, FLEET_ALARM, WATCH, drift_fla
 from ..fleet.engine import FitSettings, dask_client, run_fleet
 from ..fleet.outputs import latest_fits, results_table, write_outputs
 from ..fleet.report import render_fleet_report
-from ..fleet.tasks import CHUNK_ROWS, robot_of
-from .common import add_terms_argument, print_json, terms_from_args
+from ..fleet.tasks import CHUNK_ROWS, ArmRef, robot_of
+from .common import add_robot_arguments, add_terms_argument, print_json, selection_from_args, terms_from_args
 from .logs import add_log_arguments, options_from_args
 
 EXAMPLE = """\
@@ -27,7 +27,8 @@ examples:
 
 Catalog columns (CSV or Parquet): arm, time (date or timestamp), log (path or URL the workers can
 read), description (URDF or DH file); optional profile and excitation. Relative paths are relative
-to the catalog's folder. Per arm and period the logs are conditioned and compressed on the
+to the catalog's folder. --joints, --lock and --gravity apply to every description, as for 'ident
+fit' (e.g. a hand's fingers locked). Per arm and period the logs are conditioned and compressed on the
 workers, merged and fitted as 'ident fit' fits them (same defaults). Outputs in --out: fleet.parquet
 (arm, period, parameter, estimate, std, samples, diagnostics), params/<arm>.yaml (each arm's latest
 period), flags.csv, failures.csv and report.html.
@@ -47,6 +48,7 @@ def add_parser(sub) -> None:
     p.add_argument("source", metavar="CATALOG", help="catalog table (CSV or Parquet), or a folder pattern with {arm} and {date}")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder")
     p.add_argument("--description", metavar="FILE", help="the arms' description (URDF or DH file) for a folder pattern")
+    add_robot_arguments(p, positional=False)
     p.add_argument("--per", default="week", metavar="|".join(PERIODS),
                    help="fit the logs of each arm per day, week (ISO, from Monday) or month (default week); --period is the excitation's")
     p.add_argument("--method", choices=METHODS, default="consistent", help="estimator, as for 'ident fit' (default consistent)")
@@ -114,9 +116,10 @@ def run(args) -> int:
     groups = group_logs(entries, args.per)
     if not args.scheduler:  # a local cluster sees this machine's files: refuse missing ones before any work
         check_local_files(entries)
+    selection = selection_from_args(args)
     for desc in sorted({g.description for g in groups}):
         if "://" not in desc:
-            robot_of(desc)  # a broken description is a bad input, not a failed log
+            robot_of(ArmRef.of(desc, **selection))  # a broken description or selection is a bad input, not a failed log
     excit = {}
 
     def log_options(entry):
@@ -127,7 +130,8 @@ def run(args) -> int:
     for e in entries:
         log_options(e)  # bad excitation files fail here, on the client, before the cluster starts
     settings = FitSettings(method=args.method, terms=terms, fit_options={"uncertainty": args.uncertainty}, log_options=log_options,
-                           strict=args.strict, split=args.split_logs, chunk_rows=args.chunk_rows)
+                           strict=args.strict, split=args.split_logs, chunk_rows=args.chunk_rows,
+                           selection=selection)
     show = not (args.quiet or args.json)
     with dask_client(args.scheduler, args.workers, args.connect_timeout) as client:
         result = run_fleet(client, groups, settings, progress=show, quiet=args.quiet)

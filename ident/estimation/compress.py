@@ -56,17 +56,13 @@ from ..blas import single_thread_blas  # noqa: F401  (re-exported for the estima
 from ..errors import DataError, IdentError, NumericalError
 from .blocks import MAX_BLOCKS, BlockStore, block_length, block_ranges, merge_triangles
 from .feed import SegmentData, data_timing, iter_segments, segment_rows, stored_segment  # noqa: F401  (public here too)
+from .gram import GRAM_KAPPA, GRAM_TOL, GramRoute, residual_sums  # noqa: F401  (GRAM_*: public here too)
 
 #: Samples per chunk during compression (packed rows of a 7-joint arm: about 1.7 kB a sample).
 CHUNK = 2048
 #: Folding routes: "auto" (centred Gram where it is accurate, Householder otherwise) or
 #: "householder" (always).
 FOLDS = ("auto", "householder")
-#: Largest a-posteriori bound on the relative error the Gram route may add (see the module notes).
-GRAM_TOL = 1e-12
-#: The Gram route needs at most this scaled condition number of the data seen so far.
-GRAM_KAPPA = 1e5
-_EPS = float(np.finfo(float).eps)
 
 
 def joint_columns(robot: Robot, bp: BaseParameters) -> list[np.ndarray]:
@@ -120,7 +116,7 @@ class Reduced:
     rows: int
 
 
-class Compressor:
+class Compressor(GramRoute):
     """Accumulates the per-joint triangles of ``[Y_b | tau]`` over any number of logs.
 
     Parameters
@@ -383,28 +379,6 @@ class Compressor:
             if A.shape[0]:
                 tri[j] = fold_rows(tri[j], A[:, :-1], A[:, -1])
 
-    def _merge_grams(self, tri, grams, center) -> None:
-        """Factor each joint's centred Gram matrix, undo the centring, merge into its triangle."""
-        for j, cols in enumerate(self.columns):
-            G = grams[j]
-            if not np.any(G):
-                continue
-            d = np.sqrt(np.diag(G))
-            d[d == 0] = 1.0
-            # Cholesky of the column-scaled matrix keeps the factor's error relative to each
-            # column's own size; pivoting with a rank stop takes the rank-deficient blocks single
-            # joints often have (joint 1 of a vertical arm does not feel gravity).
-            U, piv, rank, info = lapack.dpstrf(G / np.outer(d, d), tol=-1.0, lower=0)
-            if info < 0:  # pragma: no cover - LAPACK argument error
-                raise NumericalError(f"factoring the Gram matrix failed (LAPACK info {info})")
-            F = np.zeros_like(U)
-            F[:, piv - 1] = np.triu(U)
-            F[rank:] = 0.0
-            T = scipy.linalg.qr(F, mode="r", check_finite=False)[0] * d
-            # [A | tau] = [A | tau - A beta_c] [[I, beta_c], [0, 1]]: a unit triangular column operation.
-            T[:, -1] += T[:, :-1] @ center[cols]
-            tri[j] = merge_triangles(tri[j], T)
-
     def _sets(self, tri) -> list[list[np.ndarray]]:
         """The triangle sets that together stand for the data folded so far."""
         if tri is self.triangles or not any(T.any() for T in self.triangles):
@@ -412,87 +386,6 @@ class Compressor:
         if not any(T.any() for T in tri):  # a block not yet folded adds nothing
             return [self.triangles]
         return [self.triangles, tri]
-
-    def _center(self, rows: np.ndarray, tri):
-        """Centre for the Gram route: the least-squares estimate from the data folded so far, or
-        None while that estimate is too uncertain or the problem too ill-conditioned for the route's
-        error bound (module notes) to be expected below :data:`GRAM_TOL`. rows: (n,) equations so far."""
-        dof = int(rows.sum()) - self.n_base
-        if dof <= 0:
-            return None
-        ls = self._scaled_ls(None, tri)
-        if ls is None:
-            return None
-        beta, kappa, D, R, rho = ls
-        # expected |beta_final - beta_c|: the statistical spread of beta_c
-        Rinv = scipy.linalg.solve_triangular(R, np.eye(R.shape[0]), check_finite=False)
-        spread = rho / np.sqrt(dof) * np.sqrt((Rinv * Rinv).sum(axis=1))
-        est = _EPS * self._growth() * kappa**2 * np.linalg.norm(D * spread) / max(np.linalg.norm(D * beta), 1e-300)
-        return beta if est <= 0.25 * GRAM_TOL else None
-
-    def _growth(self) -> float:
-        """Growth factor of the Gram's rounding error in the bounds: the widest row."""
-        return float(max(c.size for c in self.columns) + 1)
-
-    def _scaled_ls(self, weights, tri):
-        """(beta, scaled condition number, column norms D, R, rho) of the stacked problem so far,
-        or None when it does not determine every base parameter well (above :data:`GRAM_KAPPA`)."""
-        n = self.robot.n
-        w = np.ones(n) if weights is None else np.asarray(weights, dtype=float).reshape(n)
-        # the check closing one time block and the centre opening the next see the same data
-        # (only its split between the totals and the block differs): solved once. The fold
-        # counts change with every chunk folded and every merge, so they mark the data.
-        mark = tuple(self.folded.values())
-        memo = getattr(self, "_ls_memo", None)
-        if weights is None and memo is not None and memo[0] == mark:
-            return memo[1]
-        S = np.vstack([self.joint_rows(j, w[j], T[j]) for T in self._sets(tri) for j in range(n)])
-        out = self._solve_scaled(S)
-        if weights is None:
-            self._ls_memo = (mark, out)
-        return out
-
-    def _solve_scaled(self, S: np.ndarray):
-        """:meth:`_scaled_ls` of the stacked rows S ((rows, b + 1))."""
-        b = self.n_base
-        T = scipy.linalg.qr(S, mode="r", check_finite=False)[0][: b + 1]
-        if T.shape[0] < b + 1:
-            return None
-        R, z, rho = np.triu(T[:b, :b]), T[:b, b], float(abs(T[b, b]))
-        D = np.linalg.norm(R, axis=0)
-        if np.any(D == 0) or not np.all(np.isfinite(R)):
-            return None
-        s = np.linalg.svd(R / D, compute_uv=False)
-        if not s[-1] > GRAM_KAPPA**-1 * s[0]:
-            return None
-        beta = scipy.linalg.solve_triangular(R, z, check_finite=False)
-        return beta, float(s[0] / s[-1]), D, R, rho
-
-    def _gram_accurate(self, tri, grams, center, rows: np.ndarray) -> bool:
-        """A-posteriori check of a Gram fold (module notes): every error bound below GRAM_TOL."""
-        p = self._growth()
-        ls = self._scaled_ls(None, tri)
-        if ls is None:
-            return False
-        beta, kappa, D, _, _ = ls
-        est = _EPS * p * kappa**2 * np.linalg.norm(D * (beta - center)) / max(np.linalg.norm(D * beta), 1e-300)
-        rss = sum(_rss(T, self.columns, beta) for T in self._sets(tri))
-        for j, cols in enumerate(self.columns):
-            G = grams[j]
-            if not np.any(G):
-                continue
-            # |x^T E x| <= eps p x^T diag(G) x for the Gram's rounding error E, at x = [beta - beta_c; -1]
-            x = np.append(beta[cols] - center[cols], -1.0)
-            if not rss[j] > _EPS * p * float(np.diag(G) @ (x * x)) / GRAM_TOL:
-                return False
-        # the same with the weights WLS will use (1/sigma_j from these residuals)
-        sigma = np.sqrt(rss / np.maximum(rows, 1))
-        lw = self._scaled_ls(1.0 / np.maximum(sigma, 1e-300), tri)
-        if lw is None:
-            return False
-        bw, kw, Dw, _, _ = lw
-        est_w = _EPS * p * kw**2 * np.linalg.norm(Dw * (bw - center)) / max(np.linalg.norm(Dw * bw), 1e-300)
-        return bool(max(est, est_w) <= GRAM_TOL)
 
     def merge(self, other: "Compressor", join: bool = False) -> "Compressor":
         """Fold another compressor's triangles (same robot, terms and base set) into this one.
@@ -542,23 +435,13 @@ class Compressor:
 
     def joint_rss(self, beta: np.ndarray) -> np.ndarray:
         """Residual sum of squares of each joint for base parameters beta (b,): (n,) in (N m)^2."""
-        return _rss(self.triangles, self.columns, np.asarray(beta, dtype=float))
+        return residual_sums(self.triangles, self.columns, np.asarray(beta, dtype=float))
 
 
 def _check_ranges(ranges, N: int, where: str) -> list[tuple[int, int]]:
     out = [(int(a), int(b)) for a, b in ranges]
     if not out or out[0][0] != 0 or out[-1][1] != N or any(b <= a for a, b in out) or any(p[1] != r[0] for p, r in zip(out[:-1], out[1:])):
         raise IdentError(f"{where}: block ranges must tile the {N} samples in order, got {out[:3]}{'...' if len(out) > 3 else ''}")
-    return out
-
-
-def _rss(triangles, columns, beta: np.ndarray) -> np.ndarray:
-    """Per-joint residual sums of squares (n,) of per-joint triangles at base parameters beta."""
-    out = np.empty(len(triangles))
-    for j, cols in enumerate(columns):
-        T = triangles[j]
-        r = T[:, :-1] @ beta[cols] - T[:, -1]
-        out[j] = r @ r
     return out
 
 

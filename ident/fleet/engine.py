@@ -64,7 +64,9 @@ class FitSettings:
     period's stretches folded in time order, one carried state: bit for bit what ``ident fit``
     computes) or `split` (stretches folded apart in parallel and merged: equal up to rounding);
     `chunk_rows`: table logs longer than this many rows are cut into chunks of about as many
-    (None: :data:`ident.fleet.tasks.CHUNK_ROWS`; 0: never)."""
+    (None: :data:`ident.fleet.tasks.CHUNK_ROWS`; 0: never); `selection`: the joint selection
+    applied to every description (the keywords of :meth:`ident.fleet.tasks.ArmRef.of`: joints,
+    locked, gravity)."""
 
     method: str = "consistent"
     terms: object = "auto"
@@ -73,11 +75,12 @@ class FitSettings:
     strict: bool = False
     split: bool = False
     chunk_rows: int | None = None
+    selection: dict = field(default_factory=dict)
 
 
 def _jobs(group: Group, settings: FitSettings) -> list[T.LogJob]:
     opts = settings.log_options
-    return [T.LogJob(e.log, e.description, e.profile, dict(opts(e) if callable(opts) else (opts or {})), settings.chunk_rows)
+    return [T.LogJob(e.log, T.ArmRef.of(e.description, **settings.selection), e.profile, dict(opts(e) if callable(opts) else (opts or {})), settings.chunk_rows)
             for e in group.entries]
 
 
@@ -142,6 +145,7 @@ class _Period:
     def __init__(self, group: Group, settings: FitSettings, submit, run: FleetRun, quiet: bool):
         self.group, self.settings, self.submit, self.run, self.quiet = group, settings, submit, run, quiet
         self.logs = [_Log(j) for j in _jobs(group, settings)]
+        self.arm = T.ArmRef.of(group.description, **settings.selection)
         self.first = None
 
     def start(self) -> None:
@@ -177,7 +181,7 @@ class _Period:
         if kind[0] == "chunk":
             log.chunks[kind[2]] = s
             if len(log.chunks) == len(log.data):
-                self.submit(T.settle_log, self.group.description, log.head, *(log.chunks[i] for i in range(len(log.data))),
+                self.submit(T.settle_log, self.arm, log.head, *(log.chunks[i] for i in range(len(log.data))),
                             tag=(self, "settle", kind[1]))
             return False
         log.head = None
@@ -224,13 +228,13 @@ class _Period:
         terms = settings.terms
         if isinstance(terms, str) and terms == "auto":
             if split:
-                parts = [submit(T.choice_parts_of, d, g.description, plan.stride, None, span)
+                parts = [submit(T.choice_parts_of, d, self.arm, plan.stride, None, span)
                          for s, ds in zip(sums, datas) for d, span in zip(ds, T.chunk_spans(s))]
             else:
                 parts = [None]
                 for ds in datas:
-                    parts = [submit(T.choice_parts_of, ds[0], g.description, plan.stride, parts[0])]
-            terms = submit(T.choose_period_terms, g.description, plan.total, plan.stride, *parts)
+                    parts = [submit(T.choice_parts_of, ds[0], self.arm, plan.stride, parts[0])]
+            terms = submit(T.choose_period_terms, self.arm, plan.total, plan.stride, *parts)
         keep = settings.fit_options.get("uncertainty", "blocks") == "blocks"
         sources = [src for s in sums for src in s["sources"]]
         warns = [w for s in sums for w in s["warnings"]]
@@ -239,15 +243,15 @@ class _Period:
         work = [(ds, st) for ds, mine in zip(datas, plan.stretches) for st in mine]
         fit_args = (sources, logs, warns, options)
         if split:
-            chunks = [submit(T.compress_stretch, ds[part], g.description, terms, seg, a, b, ranges, plan.dt, keep)
+            chunks = [submit(T.compress_stretch, ds[part], self.arm, terms, seg, a, b, ranges, plan.dt, keep)
                       for ds, (part, seg, a, b, ranges, _) in work]
-            submit(T.fit_period, g.description, terms, settings.method, settings.fit_options, plan.block, *fit_args, *chunks, joins=[st[5] for _, st in work], tag=(self, "fit"))
+            submit(T.fit_period, self.arm, terms, settings.method, settings.fit_options, plan.block, *fit_args, *chunks, joins=[st[5] for _, st in work], tag=(self, "fit"))
         else:
             state = None
             for ds, (part, seg, a, b, ranges, _) in work[:-1]:
-                state = submit(T.continue_compression, ds[part], g.description, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep)
+                state = submit(T.continue_compression, ds[part], self.arm, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep)
             ds, (part, seg, a, b, ranges, _) = work[-1]
-            submit(T.fold_and_fit, ds[part], g.description, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep, settings.method,
+            submit(T.fold_and_fit, ds[part], self.arm, terms, state, seg, a, b, ranges, plan.dt, plan.block, keep, settings.method,
                    settings.fit_options, *fit_args,
                    tag=(self, "fit"))
         self.logs = []  # the cluster keeps the data sets while tasks need them, no longer

@@ -70,17 +70,19 @@ def joint_terms(robot) -> dict:
     return {c: v * scale for c, v in FRICTION.items()}
 
 
-def make_fleet(folder, description, spec: FleetSpec | None = None, drift: dict | None = None, torque_noise=None) -> dict:
+def make_fleet(folder, description, spec: FleetSpec | None = None, drift: dict | None = None, torque_noise=None,
+               selection: dict | None = None) -> dict:
     """Simulate a fleet into `folder` (see the module notes); returns {"catalog": path, "truth":
     {arm: [per period {"inertial", "joint_params"}]}, "arms": [ids]}.
 
     torque_noise : per-joint std of the logged torque, N m (default 0.25 % of each effort limit).
+    selection : :func:`ident.arm.loader.load_robot` keywords (joints, locked, gravity) of the arms.
     """
     spec = spec or FleetSpec()
     drift = drift or {}
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    robot = load_robot(description)
+    robot = load_robot(description, **(selection or {}))
     traj = routine(robot, spec)
     save_trajectory(folder / "coefficients.yaml", traj)
     t, q, dq, ddq = traj.sample(spec.control_rate, spec.cycles)

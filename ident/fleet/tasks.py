@@ -62,6 +62,28 @@ class Failed:
     message: str
 
 
+@dataclass(frozen=True)
+class ArmRef:
+    """A description file and the selection the fit uses on it, as ``ident fit`` takes them from
+    --joints, --lock and --gravity: joints identified (None: every movable one), joints locked at
+    positions ((name, rad or m) pairs) and gravity (m/s^2 in the base frame; None: the default)."""
+
+    path: str
+    joints: tuple | None = None
+    locked: tuple = ()
+    gravity: tuple | None = None
+
+    @classmethod
+    def of(cls, path: str, joints=None, locked=None, gravity=None) -> ArmRef:
+        """From :func:`ident.arm.loader.load_robot`'s keywords (lists, a dict, an array)."""
+        return cls(path, None if joints is None else tuple(joints), tuple(sorted((locked or {}).items())),
+                   None if gravity is None else tuple(float(x) for x in gravity))
+
+    def load(self):
+        g = None if self.gravity is None else np.asarray(self.gravity, dtype=float)
+        return load_robot(self.path, joints=None if self.joints is None else list(self.joints), locked=dict(self.locked), gravity=g)
+
+
 @dataclass
 class LogJob:
     """What a worker needs for one log: path or URL, description, profile, conditioning options,
@@ -69,24 +91,26 @@ class LogJob:
     0: never)."""
 
     log: str
-    description: str
+    description: ArmRef | str
     profile: str | None
     options: dict = field(default_factory=dict)
     chunk_rows: int | None = None
 
 
-def robot_of(description: str):
-    """The arm of a description file, loaded once per worker process (keyed by path and mtime)."""
+def robot_of(arm: ArmRef | str):
+    """The arm of a description (a path, or an :class:`ArmRef` with its joint selection), loaded
+    once per worker process (keyed by path, selection and the file's mtime)."""
+    arm = arm if isinstance(arm, ArmRef) else ArmRef(arm)
     try:
-        key = (description, os.stat(description).st_mtime_ns)
+        key = (arm, os.stat(arm.path).st_mtime_ns)
     except OSError:
-        key = (description, None)
+        key = (arm, None)
     if key not in _ROBOTS:
-        _ROBOTS[key] = load_robot(description)
+        _ROBOTS[key] = arm.load()
     return _ROBOTS[key]
 
 
-def base_of(description: str, terms):
+def base_of(description: ArmRef | str, terms):
     """Base parameters of the description's arm for `terms`, computed once per worker process."""
     robot = robot_of(description)
     key = (id(robot), tuple(terms))
@@ -168,7 +192,7 @@ def describe_log(data) -> dict:
     return out
 
 
-def settle_log(description: str, head: ChunkHead, *chunks: dict) -> dict:
+def settle_log(description: ArmRef | str, head: ChunkHead, *chunks: dict) -> dict:
     """A long log's summary from its chunks' :func:`describe_log` summaries (in file order): one
     segment made of the chunks' samples (``parts``: samples per chunk), the plausibility check
     of the whole log; or ``{"fallback": reason}`` when it must be conditioned whole
@@ -238,7 +262,7 @@ def chunk_spans(summary: dict) -> list:
     return [(int(o), total) for o in np.cumsum([0] + summary["parts"][:-1])]
 
 
-def choice_parts_of(data, description: str, stride: int, into: dict | None = None, span=None) -> dict:
+def choice_parts_of(data, description: ArmRef | str, stride: int, into: dict | None = None, span=None) -> dict:
     """Held-out folds of one conditioned log for every candidate friction model (small triangles),
     continuing the folds `into` of the period's earlier logs when given (the exact mode); for a
     chunk, `span` is its ``(offset, total)`` in the log's segment (:func:`chunk_spans`)."""
@@ -247,7 +271,7 @@ def choice_parts_of(data, description: str, stride: int, into: dict | None = Non
     return choice_parts(robot, segs, stride, into=into, spans=None if span is None else [span] * len(segs))
 
 
-def choose_period_terms(description: str, total: int, stride: int, *parts):
+def choose_period_terms(description: ArmRef | str, total: int, stride: int, *parts):
     """The period's friction terms from the merged folds of its logs (in time order): a TermChoice."""
     robot = robot_of(description)
     merged = parts[0]
@@ -256,7 +280,7 @@ def choose_period_terms(description: str, total: int, stride: int, *parts):
     return choose_from_parts(robot, merged, total, stride)
 
 
-def compress_stretch(data, description: str, terms, segment: int, start: int, stop: int, ranges, dt, keep_blocks: bool = True) -> Compressor:
+def compress_stretch(data, description: ArmRef | str, terms, segment: int, start: int, stop: int, ranges, dt, keep_blocks: bool = True) -> Compressor:
     """Samples ``start:stop`` of one segment of a conditioned log, folded on their own into
     per-joint triangles with their time blocks (no memory cap: the reduce applies it block by
     block). Stretches folded apart and merged equal one pass up to rounding (the split mode)."""
@@ -267,7 +291,7 @@ def compress_stretch(data, description: str, terms, segment: int, start: int, st
     return add_segment(comp, seg, any(c in DRY_FRICTION_TERMS for c in comp.terms), start=start, stop=stop, ranges=ranges, dt=dt)
 
 
-def continue_compression(data, description: str, terms, comp, segment: int, start: int, stop: int, ranges, dt, block: int,
+def continue_compression(data, description: ArmRef | str, terms, comp, segment: int, start: int, stop: int, ranges, dt, block: int,
                          keep_blocks: bool = True) -> Compressor:
     """Fold samples ``start:stop`` of one segment into the compressed state `comp` carried over
     from the period's previous stretch (None: a new one): the exact mode. The stretches of a
@@ -298,7 +322,7 @@ class PeriodFit:
     options: dict
 
 
-def fit_period(description: str, terms, method: str, fit_options: dict, block: int, sources: list[str], logs: list[str],
+def fit_period(description: ArmRef | str, terms, method: str, fit_options: dict, block: int, sources: list[str], logs: list[str],
                warnings: list[str], options: dict, *parts, joins=None) -> PeriodFit:
     """Merge a period's compressed stretches in time order and fit: the reduce step. joins : per
     part, True when its first block continues the previous part's last (:class:`Plan`)."""
@@ -324,7 +348,7 @@ def fit_period(description: str, terms, method: str, fit_options: dict, block: i
     return PeriodFit(res, logs, warnings, int(block), options)
 
 
-def fold_and_fit(data, description: str, terms, state, segment: int, start: int, stop: int, ranges, dt, block: int,
+def fold_and_fit(data, description: ArmRef | str, terms, state, segment: int, start: int, stop: int, ranges, dt, block: int,
                  keep_blocks: bool, method: str, fit_options: dict, sources: list[str], logs: list[str], warnings: list[str],
                  options: dict) -> PeriodFit:
     """The exact mode's last stretch of a period and its fit in one task (:func:`continue_compression`
