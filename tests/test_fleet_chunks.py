@@ -173,3 +173,24 @@ def test_plain_loop_runs_the_same_chunks(logs):
     a, b = _fit_of(cut, "parquet"), _fit_of(whole, "parquet")
     np.testing.assert_allclose(a.beta, b.beta, rtol=1e-8, atol=1e-10 * np.max(np.abs(b.beta)))
     np.testing.assert_allclose(a.std, b.std, rtol=1e-8)
+
+
+def test_gap_seen_only_by_the_chunks_falls_back_to_the_whole_log(logs, monkeypatch, tmp_path):
+    # the head judges the first STAT_SAMPLES rows only; with that window shortened to 4000 rows the
+    # gap at row 12 000 is met by a chunk, and the settling step must send the log to the one-task
+    # path as the head would have (plain loop: the same task functions, in this process)
+    from ident.data import chunks
+
+    monkeypatch.setattr(chunks, "STAT_SAMPLES", 4000)
+    groups = [g for g in group_logs(read_catalog(logs["catalog"]), "week") if g.arm == "gap"]
+    run = run_serial(groups, _settings(logs, method="ols", terms=("fv", "fc", "ia")))
+    notes = "\n".join(run.notes)
+    assert f"{logs['paths']['gap']}: read and conditioned whole by one worker (not cut into chunks: 1 gap(s) in the timestamps" in notes, notes
+    assert str(logs["paths"]["gap"]) not in run.placement and not run.failures
+    out = tmp_path / "gap.yaml"
+    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+        assert main(["fit", str(QUAD4), str(logs["paths"]["gap"]), "--excitation", str(logs["excitation"]), "--method", "ols",
+                     "--terms", "fv,fc,ia", "--out", str(out), "--quiet"]) == 0
+    ref = {r["name"]: r["value"] for r in yaml.safe_load(out.read_text())["base_parameters"]}
+    res = _fit_of(run, "gap")
+    np.testing.assert_allclose(res.beta, [ref[n] for n in res.names], rtol=1e-10, atol=0)
