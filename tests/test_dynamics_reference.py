@@ -397,3 +397,31 @@ def test_bad_states_and_parameters_are_refused_naming_the_argument():
     with pytest.raises(ident.IdentError, match=r"parameters: expected 60 values"):
         ident.predict(r, q, q, q, np.ones(59))
 
+
+
+def test_contraction_gradient_matches_pin_rnea_derivatives(pair):
+    # With weights G_j = u_j pi (one physical parameter vector pi, one weight u_j a joint), the
+    # contraction sum_jp Y_jp G_jp is u . tau(pi), so its exact state derivatives are u^T of
+    # pin.computeRNEADerivatives (analytic derivatives of the same inverse dynamics).
+    from ident.arm.contraction import contraction_gradient
+
+    r = pair.robot
+    rng = np.random.default_rng(23)
+    params = random_physical(r.n, rng)
+    model = pair.model.copy()
+    for k, jid in enumerate(pair.joint_ids):
+        model.inertias[jid] = pin.Inertia.FromDynamicParameters(params[k][np.argsort(PIN_TO_OURS)])
+    data = model.createData()
+    q, dq, ddq = states(r, seed=29)
+    q, dq, ddq = q[:30], dq[:30], ddq[:30]
+    u = rng.normal(size=(30, r.n))
+    G = u[:, :, None] * params.reshape(1, 1, -1)
+    F, gq, gdq, gddq = contraction_gradient(r, q, dq, ddq, G)
+    vi = pair.vidx
+    for s in range(30):
+        dtq, dtv, dta = pin.computeRNEADerivatives(model, data, pair.q(q[s]), pair.v(dq[s]), pair.v(ddq[s]))
+        tau = pin.rnea(model, data, pair.q(q[s]), pair.v(dq[s]), pair.v(ddq[s]))[vi]
+        assert_close(F[s], u[s] @ tau, f"contraction state {s}")
+        assert_close(gq[s], u[s] @ dtq[np.ix_(vi, vi)], f"d/dq state {s}")
+        assert_close(gdq[s], u[s] @ dtv[np.ix_(vi, vi)], f"d/dq' state {s}")
+        assert_close(gddq[s], u[s] @ np.triu(dta)[np.ix_(vi, vi)] + u[s] @ np.triu(dta, 1).T[np.ix_(vi, vi)], f"d/dq'' state {s}")

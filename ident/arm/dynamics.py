@@ -230,16 +230,9 @@ def point_motion(robot: Robot, Rw: np.ndarray, pw: np.ndarray, frame: str, point
     J = np.zeros((N, 3, robot.n))
     if fr.body < 0:
         return np.broadcast_to(local_p, (N, 3)).copy(), J
-    x = pw[:, fr.body] + Rw[:, fr.body] @ local_p
-    for j in np.flatnonzero(robot.ancestors[fr.body]):
-        z = Rw[:, j] @ robot.axis[j]
-        if robot.joint_type[j] != 0:
-            J[:, :, j] = z
-            continue
-        r = x - pw[:, j]  # z x r written out: numpy's cross costs more than the arithmetic here
-        J[:, 0, j] = z[:, 1] * r[:, 2] - z[:, 2] * r[:, 1]
-        J[:, 1, j] = z[:, 2] * r[:, 0] - z[:, 0] * r[:, 2]
-        J[:, 2, j] = z[:, 0] * r[:, 1] - z[:, 1] * r[:, 0]
+    x = np.empty((N, 3))
+    kernels.point_chunk(np.ascontiguousarray(Rw), np.ascontiguousarray(pw), fr.body, np.ascontiguousarray(local_p),
+                        np.ascontiguousarray(robot.ancestors[fr.body]), robot.joint_type, robot.axis, x, J)
     return x, J
 
 

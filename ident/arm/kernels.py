@@ -564,3 +564,30 @@ def poses_chunk(q, parent, jtype, Rf, pf, ax, Rw, pw):
                     pw[s, k, i] = pw[s, par, i] + Rw[s, par, i, 0] * p[k, 0] + Rw[s, par, i, 1] * p[k, 1] + Rw[s, par, i, 2] * p[k, 2]
                     for j in range(3):
                         Rw[s, k, i, j] = Rw[s, par, i, 0] * R[k, 0, j] + Rw[s, par, i, 1] * R[k, 1, j] + Rw[s, par, i, 2] * R[k, 2, j]
+
+
+@njit(**_OPTS)
+def point_chunk(Rw, pw, body, local, anc, jtype, ax, x, J):
+    """Position x (N, 3) and linear Jacobian J (N, 3, n) of the point `local` (3,) of body `body`
+    from the poses of :func:`poses_chunk`; `anc` (n,) marks the joints that move the body. J's
+    other columns are left as they are (the caller clears them)."""
+    N = Rw.shape[0]
+    n = anc.shape[0]
+    for s in range(N):
+        for i in range(3):
+            x[s, i] = pw[s, body, i] + Rw[s, body, i, 0] * local[0] + Rw[s, body, i, 1] * local[1] + Rw[s, body, i, 2] * local[2]
+        for j in range(n):
+            if not anc[j]:
+                continue
+            z0 = Rw[s, j, 0, 0] * ax[j, 0] + Rw[s, j, 0, 1] * ax[j, 1] + Rw[s, j, 0, 2] * ax[j, 2]
+            z1 = Rw[s, j, 1, 0] * ax[j, 0] + Rw[s, j, 1, 1] * ax[j, 1] + Rw[s, j, 1, 2] * ax[j, 2]
+            z2 = Rw[s, j, 2, 0] * ax[j, 0] + Rw[s, j, 2, 1] * ax[j, 1] + Rw[s, j, 2, 2] * ax[j, 2]
+            if jtype[j] != 0:
+                J[s, 0, j] = z0
+                J[s, 1, j] = z1
+                J[s, 2, j] = z2
+                continue
+            r0, r1, r2 = x[s, 0] - pw[s, j, 0], x[s, 1] - pw[s, j, 1], x[s, 2] - pw[s, j, 2]
+            J[s, 0, j] = z1 * r2 - z2 * r1
+            J[s, 1, j] = z2 * r0 - z0 * r2
+            J[s, 2, j] = z0 * r1 - z1 * r0

@@ -18,6 +18,9 @@ from .keepout import REGION_KINDS, KeepoutPoint, Region
 
 CRITERIA = ("cond", "logdet")
 
+#: Default number of optimizer starts: as many as the default budget explores to convergence on a
+#: 6- or 7-joint arm with 5 harmonics (bench_excite.py).
+DEFAULT_STARTS = 12
 #: Default time budget of the optimizer, s.
 DEFAULT_BUDGET = 15.0
 
@@ -49,7 +52,7 @@ class ExcitationConfig:
     points: list[KeepoutPoint] = field(default_factory=list)
     regions: list[Region] = field(default_factory=list)
     seed: int = 0
-    starts: int = 6
+    starts: int = DEFAULT_STARTS
     budget: float | None = DEFAULT_BUDGET
     max_iterations: int = 300
     design_samples: int = 120
@@ -168,7 +171,7 @@ class ExcitationConfig:
             points=points,
             regions=regions,
             seed=intake_seed(opt.get("seed", 0), f"{where}: optimizer.seed"),
-            starts=count(opt.get("starts", 6), f"{where}: optimizer.starts", 1, MAX_STARTS, limit_name="hours of optimizing at the least"),
+            starts=count(opt.get("starts", DEFAULT_STARTS), f"{where}: optimizer.starts", 1, MAX_STARTS, limit_name="hours of optimizing at the least"),
             budget=budget,
             max_iterations=count(opt.get("max_iterations", 300), f"{where}: optimizer.max_iterations", 1, 10**6, limit_name="L-BFGS-B converges in hundreds"),
             design_samples=count(opt.get("design_samples", max(96, 24 * harmonics)), f"{where}: optimizer.design_samples", 8, MAX_DESIGN_SAMPLES,

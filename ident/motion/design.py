@@ -27,7 +27,7 @@ from .fourier import REST_TOLERANCE, FourierTrajectory
 from .problem import EXPLORE_STAGE, POLISH_STAGES, BudgetExhausted, DesignProblem
 
 #: Share of the time budget the exploration of the starts may use; polishing the best takes the rest.
-EXPLORE_SHARE = 0.55
+EXPLORE_SHARE = 0.65
 
 
 @dataclass

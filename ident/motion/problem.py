@@ -1,7 +1,7 @@
 """The excitation design as a penalty problem over the null-space coordinates of the Fourier family.
 
-Minimized by L-BFGS-B with exact gradients (the regressor's state sensitivities come from batched
-differences that are exact for its linear and quadratic dependence on q'' and q'). A candidate is
+Minimized by L-BFGS-B with exact gradients (the regressor's state sensitivities come from one
+adjoint sweep a sample, :mod:`ident.arm.contraction`). A candidate is
 made feasible by scaling its motion about the particular solution (home at rest) until every
 constraint holds on a grid `check_factor` times finer than the design grid and on the
 controller-rate samples, with a cushion for excursions between samples.
@@ -15,6 +15,7 @@ import time
 import numpy as np
 
 from ..arm.base import base_parameters
+from ..arm.contraction import contraction_gradient
 from ..arm.dynamics import body_poses, point_motion
 from ..arm.model import Robot
 from ..arm.regressor import regressor_into
@@ -86,8 +87,7 @@ class DesignProblem:
             c = ind[pos] - p_in
             self.term_cols.append((pos, c // nt, cfg.terms[c % nt]))
         self.prior_flat = robot.prior.reshape(-1)
-        self.buf = np.empty(((3 * n + 1) * N, n, p_in))
-        self.states = np.empty((3, N, 3 * n + 1, n))
+        self.Yin = np.empty((N, n, p_in))
         self.sharpness = None  # power-mean exponent of the smooth condition number (None: exact)
         self.v_smooth = 0.01 * cfg.velocity
         self.mu = 1.0
@@ -141,26 +141,15 @@ class DesignProblem:
         X = self.coeffs(zflat)
         phi, dphi, ddphi = self.Phi
         q, dq, ddq = phi @ X.T, dphi @ X.T, ddphi @ X.T
-        # batched states, sample-major: base, q + h e_i, dq + h e_i, ddq + e_i (forward
-        # differences; exact in q'' where the regressor is linear, second order in q' where it is
-        # quadratic); sample-major so the contraction below is one small product per sample
-        hq, hd = 1e-7, 1e-6
-        K = 3 * n + 1
-        Q, DQ, DDQ = self.states
-        Q[:], DQ[:], DDQ[:] = q[:, None, :], dq[:, None, :], ddq[:, None, :]
-        j = np.arange(n)
-        Q[:, 1 + j, j] += hq
-        DQ[:, 1 + n + j, j] += hd
-        DDQ[:, 1 + 2 * n + j, j] += 1.0
-        regressor_into(robot, Q.reshape(-1, n), DQ.reshape(-1, n), DDQ.reshape(-1, n), self.buf, ())
-        Yall = self.buf.reshape(N, K, n, 10 * n)
-        Yin = Yall[:, 0]
+        q, dq, ddq = (np.ascontiguousarray(x) for x in (q, dq, ddq))
+        Yin = regressor_into(robot, q, dq, ddq, self.Yin, ())
         Yb = self.base_rows(q, dq, ddq, Yin, smooth=True)
         A = self.information(Yb)
         f, GA = criterion_grad(A, cfg.criterion, self.sharpness)
         if not np.isfinite(f):
             f, GA = 50.0, np.zeros_like(A)  # rank-deficient point: flat high value, penalties still steer
-        GY = 2.0 * self.factor * (self.w_row**2)[None, :, None] * (Yb @ GA)  # (N, n, b)
+        b = Yb.shape[2]
+        GY = 2.0 * self.factor * (self.w_row**2)[None, :, None] * (Yb.reshape(-1, b) @ GA).reshape(N, n, b)  # (N, n, b)
         gq = np.zeros((N, n))
         gdq = np.zeros((N, n))
         gddq = np.zeros((N, n))
@@ -207,15 +196,14 @@ class DesignProblem:
                 pen += mu * np.sum(v**2) / N
                 gx = -mu * 2.0 * v[:, None] * grad_x / _KEEPOUT_SCALE / N  # (N, 3)
                 gq += np.einsum("nk,nki->ni", gx, J)
-        # chain through the regressor: gradient on the full inertial regressor, contracted with
-        # the regressor at each batched state (one (K, n p) x (n p,) product per sample)
-        Gfull = np.zeros((N, n, 10 * n))
-        Gfull[:, :, self.inert_cols] = GY[:, :, self.inert_pos]
-        Gfull += Gtau[:, :, None] * self.prior_flat[None, None, :]
-        s = np.matmul(Yall.reshape(N, K, -1), Gfull.reshape(N, -1, 1))[:, :, 0]  # (N, K)
-        gq += (s[:, 1 : 1 + n] - s[:, :1]) / hq
-        gdq += (s[:, 1 + n : 1 + 2 * n] - s[:, :1]) / hd
-        gddq += s[:, 1 + 2 * n : 1 + 3 * n] - s[:, :1]
+        # chain through the regressor: the gradient on the inertial regressor (criterion and prior
+        # torque) contracted with Y's state derivatives, by one adjoint sweep a sample
+        Gfull = Gtau[:, :, None] * self.prior_flat[None, None, :]
+        Gfull[:, :, self.inert_cols] += GY[:, :, self.inert_pos]
+        _, cq, cdq, cddq = contraction_gradient(robot, q, dq, ddq, Gfull)
+        gq += cq
+        gdq += cdq
+        gddq += cddq
         GX = gq.T @ phi + gdq.T @ dphi + gddq.T @ ddphi  # (n, m)
         return f + pen, (GX @ self.Z).reshape(-1)
 
