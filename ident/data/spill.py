@@ -17,7 +17,7 @@ import numpy as np
 from .dataset import Segment
 
 #: Rows read at a time when gathering strided rows from a stored segment.
-READ_ROWS = 1 << 16
+READ_ROWS = 1 << 14
 
 
 class Spill:

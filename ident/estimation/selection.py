@@ -118,13 +118,15 @@ def choice_parts(robot: Robot, segs, stride: int, candidates=CANDIDATES, folds: 
                 comps = [Compressor(robot, terms, base_parameters(robot, terms), keep_blocks=False) for _ in range(folds)]
             for source, q, dq, ddq, tau, stuck, dry, cuts in subs:
                 keep = None if stuck is None else ~stuck
-                cols = None if dry is None else term_columns(terms, dq, ddq, dry)
                 for f, (a, b) in enumerate(cuts):
                     if b <= a:
                         continue
                     sl = slice(a, b)
+                    # the term columns of one fold at a time (elementwise: the same values), so the
+                    # richest candidate's (N, n, 8) block never exists for the whole choice
+                    cols = None if dry is None else term_columns(terms, dq[sl], ddq[sl], dry[sl])
                     comps[f].add(q[sl], dq[sl], ddq[sl], tau[sl], source=source,
-                                 keep=None if keep is None else keep[sl], term_signals=None if cols is None else cols[sl])
+                                 keep=None if keep is None else keep[sl], term_signals=cols)
             out[terms] = comps
     return out
 
