@@ -275,16 +275,21 @@ def random_physical(n: int, rng) -> np.ndarray:
     return out
 
 
+def model_with(pair: Pair, params: np.ndarray):
+    """pin's model of the pair with our bodies `params` (n, 10) in place of the description's, and its data."""
+    model = pair.model.copy()
+    for k, jid in enumerate(pair.joint_ids):
+        model.inertias[jid] = pin.Inertia.FromDynamicParameters(params[k][np.argsort(PIN_TO_OURS)])
+    return model, model.createData()
+
+
 def test_inverse_dynamics_with_other_parameters(pair):
     # Random physical bodies instead of the description's: exercises every axis, including the
     # massless romeo hand body on its oblique axis. pin takes the same bodies through model.inertias.
     r = pair.robot
     rng = np.random.default_rng(17)
     params = random_physical(r.n, rng)
-    model = pair.model.copy()
-    for k, jid in enumerate(pair.joint_ids):
-        model.inertias[jid] = pin.Inertia.FromDynamicParameters(params[k][np.argsort(PIN_TO_OURS)])
-    data = model.createData()
+    model, data = model_with(pair, params)
     q, dq, ddq = states(r, seed=19)
     tau = ident.inverse_dynamics(r, q, dq, ddq, inertial=params)
     M = ident.mass_matrix(r, q, inertial=params)
@@ -398,7 +403,6 @@ def test_bad_states_and_parameters_are_refused_naming_the_argument():
         ident.predict(r, q, q, q, np.ones(59))
 
 
-
 def test_contraction_gradient_matches_pin_rnea_derivatives(pair):
     # With weights G_j = u_j pi (one physical parameter vector pi, one weight u_j a joint), the
     # contraction sum_jp Y_jp G_jp is u . tau(pi), so its exact state derivatives are u^T of
@@ -408,10 +412,7 @@ def test_contraction_gradient_matches_pin_rnea_derivatives(pair):
     r = pair.robot
     rng = np.random.default_rng(23)
     params = random_physical(r.n, rng)
-    model = pair.model.copy()
-    for k, jid in enumerate(pair.joint_ids):
-        model.inertias[jid] = pin.Inertia.FromDynamicParameters(params[k][np.argsort(PIN_TO_OURS)])
-    data = model.createData()
+    model, data = model_with(pair, params)
     q, dq, ddq = states(r, seed=29)
     q, dq, ddq = q[:30], dq[:30], ddq[:30]
     u = rng.normal(size=(30, r.n))

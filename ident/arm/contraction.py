@@ -25,6 +25,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from ..errors import IdentError
 from .kernels import _BLOCK, _OPTS, _motion_blocks, use_threads
 from .model import Robot, kernel_arrays
 
@@ -253,7 +254,7 @@ def contraction_gradient(robot: Robot, q, dq, ddq, G) -> tuple[np.ndarray, np.nd
     G = np.ascontiguousarray(G, dtype=float)
     N, n = q.shape
     if G.shape != (N, n, 10 * n):
-        raise ValueError(f"contraction weights: expected shape {(N, n, 10 * n)}, got {G.shape}")
+        raise IdentError(f"contraction weights: expected shape {(N, n, 10 * n)}, got {G.shape}")
     F = np.empty(N)
     gq, gdq, gddq = np.empty((N, n)), np.empty((N, n)), np.empty((N, n))
     kernel = _contract_parallel if use_threads(N) else _contract_serial
