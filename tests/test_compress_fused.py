@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.linalg
-from conftest import UR5, erd_path
+from conftest import PANDA, PANDA_FINGERS_LOCKED, UR5, erd_path
 from test_estimate import random_physical_truth, sine_trajectory
 
 import ident
@@ -168,3 +168,32 @@ def test_merged_gram_compressors_equal_one(ur5):
     assert np.abs(_solve(merged) - ref).max() <= 1e-10 * np.abs(ref).max()
     np.testing.assert_allclose(merged.joint_rss(ref), one.joint_rss(ref), rtol=1e-10)
     assert fit_compressed(merged, "ols").samples == 6000
+
+
+@pytest.mark.parametrize("arm", ["ur5", "panda"])
+def test_packed_rows_equal_regressor_entries(ur5, arm):
+    # The fused kernel's packed rows against the per-sample regressor (itself checked against
+    # pin's joint-torque regressor in test_regressor.py): each kept equation's row holds the
+    # regressor's base-column entries bit for bit, left-out equations are absent and the centred
+    # torque is tau - Y_b beta_c; with threads too.
+    robot = ur5 if arm == "ur5" else ident.load_robot(erd_path(PANDA), locked=PANDA_FINGERS_LOCKED)
+    rng = np.random.default_rng(11)
+    m = 1007
+    q = rng.uniform(-2.5, 2.5, (m, robot.n))
+    dq, ddq, tau = (rng.standard_normal(q.shape) for _ in range(3))
+    keep = rng.random(q.shape) > 0.2
+    comp = Compressor(robot, TERMS)
+    center = rng.standard_normal(comp.n_base)
+    Yb = _stacked(robot, q, dq, ddq)  # (m, n, b)
+    for mode in ("off", "on"):
+        previous = kernels.set_threading(mode)
+        try:
+            blocks = comp._pack(q, dq, ddq, tau, keep, None, 0, m, center)
+        finally:
+            kernels.set_threading(previous)
+        for j, cols in enumerate(comp.columns):
+            A, kj = blocks[j], keep[:, j]
+            assert A.shape == (kj.sum(), cols.size + 1)
+            np.testing.assert_array_equal(A[:, :-1], Yb[kj, j][:, cols])
+            t = tau[kj, j] - Yb[kj, j][:, cols] @ center[cols]
+            np.testing.assert_allclose(A[:, -1], t, rtol=1e-12, atol=1e-12 * np.abs(t).max())
