@@ -205,3 +205,28 @@ def test_fit_command_takes_the_block_path_for_a_long_log(tmp_path, monkeypatch, 
         rc = main(["fit", str(urdf), str(pq), "--method", "wls", "--cutoff", "3", "--decimate", "7", "--quiet", "--out", str(out)])
     assert rc == 0 and out.is_file()
     assert seen == [True]
+
+
+def test_csv_read_ahead_forwards_errors_and_stops_with_its_reader():
+    # The thread that parses CSV blocks ahead: items arrive in order, a reader's error is raised
+    # at the item where it occurred, and a consumer that stops early leaves no thread behind.
+    import threading
+
+    from ident.data.tables import _read_ahead
+
+    assert list(_read_ahead(iter(range(50)), 3)) == list(range(50))
+
+    def failing():
+        yield 1
+        yield 2
+        raise ValueError("broken block")
+
+    got = []
+    with pytest.raises(ValueError, match="broken block"):
+        for x in _read_ahead(failing(), 2):
+            got.append(x)
+    assert got == [1, 2]
+    it = _read_ahead(iter(range(10**6)), 2)
+    assert next(it) == 0
+    it.close()
+    assert not any(t.name == "ident-csv-read-ahead" and t.is_alive() for t in threading.enumerate())
