@@ -199,6 +199,7 @@ def test_fit_command_takes_the_block_path_for_a_long_log(tmp_path, monkeypatch, 
     monkeypatch.setattr("ident.commands.logs.load_dataset", spy)
     monkeypatch.setattr(streaming, "STREAM_ROWS", 50_000)  # the log's 60 000 rows count as long
     monkeypatch.setattr(streaming, "BLOCK", 4000)
+    monkeypatch.setattr(streaming, "MAX_BLOCK", 4000)
     out = tmp_path / "params.yaml"
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")

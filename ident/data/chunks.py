@@ -44,8 +44,8 @@ from .profile import load_profile
 from .readers import log_format
 from .segments import CLIP_FRACTION, STAT_SAMPLES, JointPlan, period_samples
 from .streaming import (
-    BLOCK,
     NotStreamable,
+    block_samples,
     check_extremes,
     check_logged,
     check_rate,
@@ -197,8 +197,9 @@ def condition_chunk(head: ChunkHead, i: int) -> Dataset:
     sel = head.selected()
     lo, hi = (int(x) for x in np.searchsorted(sel, [a, b]))
     parts = []
-    for c0 in range(a, b, BLOCK):  # memory of one block at a time, as on the block path
-        c1 = min(b, c0 + BLOCK)
+    block = block_samples(opts)
+    for c0 in range(a, b, block):  # memory of one block at a time, as on the block path
+        c1 = min(b, c0 + block)
         s0, s1 = max(0, c0 - ov), min(m, c1 + ov)
         l2, h2 = np.searchsorted(sel, [c0, c1])
         if h2 == l2:

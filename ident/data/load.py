@@ -51,7 +51,7 @@ def load_dataset(paths, robot=None, profile=None, options=None, *, stream: bool 
         (:mod:`ident.data.streaming`: same samples, memory of one block). None (default): when a
         CSV or Parquet log holds more than :data:`ident.data.streaming.STREAM_ROWS` rows and the
         options allow it; True: whenever the options allow it; False: never.
-    block : samples a block on that path (default :data:`ident.data.streaming.BLOCK`).
+    block : samples a block on that path (default :func:`ident.data.streaming.block_samples`).
 
     Returns
     -------
@@ -64,7 +64,7 @@ def load_dataset(paths, robot=None, profile=None, options=None, *, stream: bool 
     if (stream is not False and streaming.streamable(opts) is None and _tables_only(paths, prof)
             and (stream or any((estimated_rows(p, prof) or 0) > streaming.STREAM_ROWS for p in _path_list(paths)))):
         try:
-            return _load(paths, robot, prof, opts, condition=True, stream_block=int(block or streaming.BLOCK), resolved=True)
+            return _load(paths, robot, prof, opts, condition=True, stream_block=int(block or streaming.block_samples(opts)), resolved=True)
         except streaming.NotStreamable:
             pass  # irregular sampling or an extreme trim: the whole-file path below handles it
     return _load(paths, robot, prof, opts, condition=True, resolved=True)

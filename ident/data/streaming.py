@@ -44,11 +44,18 @@ from .rawlog import RawLog
 from .segments import CLIP_FRACTION, STAT_SAMPLES, JointPlan, condition_segment, period_samples
 from .spill import Spill, StoredSegment
 
-#: Samples of a segment conditioned at a time (before the overlap is added). The overlap on
-#: each side is a few thousand samples at a low cutoff, so at 2^17 its filtering cost 7 % of the
-#: time of a 1 h log; the peak memory is set by the reading pass, not by this (measured with
-#: scripts/bench_logs.py).
-BLOCK = 1 << 18
+#: Samples of a segment conditioned at a time (before the overlap is added), without decimation:
+#: the conditioned channels of a block are held until stored, so this sets the path's peak memory.
+BLOCK = 1 << 17
+#: Input samples of a block when decimating (the block's output is then a fraction of them). The
+#: overlap on each side is a few thousand samples at a low cutoff; at 2^17 its filtering cost 7 %
+#: of the time of a decimated 1 h log (scripts/bench_logs.py).
+MAX_BLOCK = 1 << 18
+
+
+def block_samples(opts: LogOptions) -> int:
+    """Input samples per block on this path: :data:`BLOCK` output samples, at most :data:`MAX_BLOCK` read."""
+    return min(MAX_BLOCK, BLOCK * max(1, int(opts.decimate)))
 
 #: Rows read from the file at a time.
 READ_ROWS = 1 << 16
