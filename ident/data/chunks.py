@@ -32,6 +32,7 @@ does not use it); the sample step of its segment is the median of the chunks' me
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -54,6 +55,7 @@ from .streaming import (
     merge_extremes,
     overlap,
     piece_zones,
+    selected_rows,
     streamable,
     trim_samples,
 )
@@ -103,9 +105,14 @@ class ChunkHead:
     def chunks(self) -> int:
         return len(self.edges) - 1
 
-    def selected(self) -> np.ndarray:
-        """Rows of the file that become samples (after the trims and the decimation)."""
-        return np.arange(self.trim, self.rows - self.trim, self.opts.decimate)
+    def selected_in(self, a: int, b: int) -> np.ndarray:
+        """Rows in [a, b) of the file that become samples (after the trims and the decimation)."""
+        return selected_rows([(self.trim, self.rows - self.trim)], self.opts.decimate, a, b)
+
+    def selected_before(self, x: int) -> int:
+        """How many rows before row x become samples (no index of the whole log is built)."""
+        x = min(int(x), self.rows - self.trim)
+        return max(0, -(-(x - self.trim) // self.opts.decimate))
 
 
 def read_head(path, robot=None, profile=None, options=None, chunk_rows: int = CHUNK_ROWS) -> tuple[ChunkHead | None, str | None]:
@@ -171,7 +178,7 @@ def read_head(path, robot=None, profile=None, options=None, chunk_rows: int = CH
     k = -(-rows // int(chunk_rows))
     edges = [int(x) for x in np.linspace(0, rows, k + 1).round()]
     head = ChunkHead(str(p), fmt, table, index, opts, rows, nominal, cutoff, info, plan, zones, trim, edges, [])
-    head.sizes = [int(x) for x in np.diff(np.searchsorted(head.selected(), edges))]
+    head.sizes = [head.selected_before(e1) - head.selected_before(e0) for e0, e1 in itertools.pairwise(edges)]
     return head, None
 
 
@@ -194,18 +201,17 @@ def condition_chunk(head: ChunkHead, i: int) -> Dataset:
     tau_own = np.abs(arrays["tau"][own])
     lim = head.table.limit
     hits = [int(np.sum(tau_own[:, k] >= CLIP_FRACTION * lim[k])) if np.isfinite(lim[k]) else 0 for k in range(len(lim))]
-    sel = head.selected()
-    lo, hi = (int(x) for x in np.searchsorted(sel, [a, b]))
+    lo, hi = head.selected_before(a), head.selected_before(b)
     parts = []
     block = block_samples(opts)
     for c0 in range(a, b, block):  # memory of one block at a time, as on the block path
         c1 = min(b, c0 + block)
         s0, s1 = max(0, c0 - ov), min(m, c1 + ov)
-        l2, h2 = np.searchsorted(sel, [c0, c1])
-        if h2 == l2:
+        picked = head.selected_in(c0, c1)
+        if not picked.size:
             continue
         win = {c: None if arrays[c] is None else arrays[c][s0 - w0 : s1 - w0] for c in CHANNELS}
-        parts.append((t[sel[l2:h2] - w0],) + condition_rows(plan, win, sel[l2:h2] - s0, head.zones))
+        parts.append((t[picked - w0],) + condition_rows(plan, win, picked - s0, head.zones))
     segs = []
     if parts:
         out = {c: np.concatenate([p_[1][c] for p_ in parts]) for c in CHANNELS}

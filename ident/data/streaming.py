@@ -411,6 +411,18 @@ def condition_rows(plan: JointPlan, win: dict, rows: np.ndarray, zones) -> tuple
     return out, slow, stuck, dry
 
 
+def selected_rows(runs, step: int, c0: int, c1: int) -> np.ndarray:
+    """Rows in [c0, c1) of every `step`-th sample of each run [a, b) (counted from a), ascending:
+    the samples a block keeps, without an index of the whole piece (8 bytes a sample out)."""
+    parts = []
+    for a, b in runs:
+        lo, hi = max(a, c0), min(b, c1)
+        if lo < hi:
+            first = a + -(-(lo - a) // step) * step
+            parts.append(np.arange(first, hi, step))
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
+
+
 def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, joint_names, warnings, counts,
                      noise, thresholds, out_files: dict, block: int = BLOCK) -> list:
     """Condition the uniform piece rows s..e-1 of a stored file in overlapping blocks; equals
@@ -474,7 +486,6 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
     if not sel:
         return []
     counts["decimated"] += sum(b - a for a, b in runs) - sum(sel)
-    allsel = np.concatenate([np.arange(a, b, opts.decimate) for a, b in runs])
     check_logged(opts, raw.source, raw.ch["dq"] is not None, raw.ch["ddq"] is not None, cutoff)
     zones = piece_zones(plan, raw.read_col, s, n, thresholds)
     start = out_files["t"].rows
@@ -482,15 +493,15 @@ def condition_stream(raw: _RawStore, s: int, e: int, opts: LogOptions, cutoff, j
     for c0 in range(0, m, block):
         c1 = min(m, c0 + block)
         w0, w1 = max(0, c0 - ov), min(m, c1 + ov)
-        lo, hi = np.searchsorted(allsel, [c0, c1])
-        rows = allsel[lo:hi] - w0
+        picked = selected_rows(runs, opts.decimate, c0, c1)
+        rows = picked - w0
         win = {c: raw.read(c, s + w0, s + w1) for c in CHANNELS}
         if pnoise is not None:
             pnoise.add(win["q"][c0 - w0 : c1 - w0], win["tau"][c0 - w0 : c1 - w0])
         out, slow, stuck, dry = condition_rows(plan, win, rows, zones)
         n_slow += int(slow.sum())
         n_stuck += int(stuck.sum())
-        out_files["t"].append(raw.read("t", s + c0, s + c1)[allsel[lo:hi] - c0])
+        out_files["t"].append(raw.read("t", s + c0, s + c1)[picked - c0])
         for c in CHANNELS:
             out_files[c].append(out[c])
         out_files["slow"].append(slow)
