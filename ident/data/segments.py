@@ -13,7 +13,7 @@ import numpy as np
 from ..arm.model import LOW_SPEED_SCALES
 from ..errors import DataError
 from . import conditioning as cond
-from .dataset import Segment
+from .dataset import STAT_SAMPLES, Segment
 from .options import LogOptions
 from .rawlog import RawLog
 
@@ -44,12 +44,6 @@ MIN_SLOW_FRACTION = 1e-3
 #: A torque within this fraction of its saturation level counts as clipped.
 CLIP_FRACTION = 0.999
 
-#: Statistics taken over a whole segment or file -- the nominal sample step, the velocity noise,
-#: the RMS velocity and the acceleration at reversals that set the slow zone, the data-chosen
-#: cutoff -- use at most its first this many samples (about 8.7 minutes at 1 kHz). Shorter logs
-#: see no difference; a long log is then conditioned block by block with a bounded look-ahead
-#: and gives the same samples as conditioning it whole (:mod:`ident.data.streaming`).
-STAT_SAMPLES = 2**19
 
 
 @dataclass

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .dataset import Segment
+from .dataset import STAT_SAMPLES, Segment, sample_step
 
 #: Rows read at a time when gathering strided rows from a stored segment.
 READ_ROWS = 1 << 14
@@ -90,12 +90,9 @@ class StoredSegment:
         self._files = files  # field -> RowFile (or None); holds the spill alive
         self._start = int(start)
         self._n = int(n_samples)
-        t = self._read("t", 0, self._n)
-        self._t0, self._t1 = (float(t[0]), float(t[-1])) if self._n else (0.0, 0.0)
-        # the same sample step a Segment in memory reports: the median of all its steps
-        steps = np.diff(t)
-        del t
-        self._dt = float(np.median(steps, overwrite_input=True)) if self._n > 1 else float("nan")
+        t = self._read("t", 0, min(self._n, STAT_SAMPLES + 1))
+        self._t0, self._t1 = (float(t[0]), float(self._read("t", self._n - 1, self._n)[0])) if self._n else (0.0, 0.0)
+        self._dt = sample_step(t)  # as a Segment in memory reports it, without reading the whole t
 
     @property
     def n_samples(self) -> int:
