@@ -12,7 +12,7 @@ over from the parent across fork and exec, so that figure would include the gene
 * 1 h and 4 h, block path + ``ident.fit`` (weighted least squares, default terms "auto" and the
   block jackknife) on a 7-joint chain of our own, Parquet;
 * 1 h and 4 h, block path without decimation (every sample out, as with the default options),
-  Parquet.
+  Parquet, alone and with the fit (what ``ident fit`` with no options does on such a log).
 
 Targets: block path peak under 400 MB at 1 h and at 4 h (every block-path row), time no worse than the whole-file path.
 The 4 h files are written to a temporary folder (about 2 GB Parquet + 4 GB CSV) and removed.
@@ -195,13 +195,14 @@ def main() -> int:
                 res[key] = got
         res["pf"] = _run(f"{h} Parquet blocks + fit", pq_path, "fit")
         res["pu"] = _run(f"{h} Parquet undecimated", pq_path, "stream", ["--averaged"])
+        res["puf"] = _run(f"{h} Parquet undecimated + fit", pq_path, "fit", ["--averaged"])
         if None in res.values():
             return 1
         best = f" (best of {args.rounds} rounds)" if args.rounds > 1 else ""
         print(f"block path / whole-file path, {h}{best}: Parquet time {res['ps']['seconds'] / res['pm']['seconds']:.2f}, "
               f"peak {res['ps']['peak_mb'] / res['pm']['peak_mb']:.2f}; CSV time {res['cs']['seconds'] / res['cm']['seconds']:.2f}, "
               f"peak {res['cs']['peak_mb'] / res['cm']['peak_mb']:.2f}")
-        peaks = [res[k]["peak_mb"] for k in ("ps", "cs", "pf", "pu")]
+        peaks = [res[k]["peak_mb"] for k in ("ps", "cs", "pf", "pu", "puf")]
         if not args.skip_long:
             if not args.keep:  # make room: the long files are large
                 for p in (pq_path, csv_path):
@@ -210,7 +211,8 @@ def main() -> int:
             lh = f"{args.long_hours:g} h"
             for label, path, mode, extra in ((f"{lh} Parquet blocks", lpq, "stream", []), (f"{lh} CSV blocks", lcsv, "stream", []),
                                              (f"{lh} Parquet blocks + fit", lpq, "fit", []),
-                                             (f"{lh} Parquet undecimated", lpq, "stream", ["--averaged"])):
+                                             (f"{lh} Parquet undecimated", lpq, "stream", ["--averaged"]),
+                                             (f"{lh} Parquet undecimated + fit", lpq, "fit", ["--averaged"])):
                 r = _run(label, path, mode, extra)
                 if r is None:
                     return 1
