@@ -12,11 +12,12 @@ from ..errors import DataError
 CHANNELS = ("q", "dq", "ddq", "tau")
 
 
-#: Statistics taken over a whole segment or file -- the sample step (:func:`sample_step`), the nominal step, the velocity noise,
-#: the RMS velocity and the acceleration at reversals that set the slow zone, the data-chosen
-#: cutoff -- use at most its first this many samples (about 8.7 minutes at 1 kHz). Shorter logs
-#: see no difference; a long log is then conditioned block by block with a bounded look-ahead
-#: and gives the same samples as conditioning it whole (:mod:`ident.data.streaming`).
+#: Statistics taken over a whole segment or file -- the sample step (:func:`sample_step`), the
+#: nominal step, the velocity noise, the RMS velocity and the acceleration at reversals that set
+#: the slow zone, the data-chosen cutoff -- use at most its first this many samples (about 8.7
+#: minutes at 1 kHz). Shorter logs see no difference; a long log is then conditioned block by
+#: block with a bounded look-ahead and gives the same samples as conditioning it whole
+#: (:mod:`ident.data.streaming`).
 STAT_SAMPLES = 2**19
 
 
