@@ -58,11 +58,12 @@ def child(n_samples: int, repeat: int) -> None:
         from ident.estimation.compress import compress
         from ident.estimation.estimate import fit_compressed
     except ImportError:
-        from ident import kernels
         from ident.compress import compress
         from ident.dynamics import inverse_dynamics
         from ident.estimate import fit_compressed
         from ident.regressor import iter_regressor
+
+        from ident import kernels
 
     root = Path(importlib.metadata.distribution("example-robot-data").locate_file("cmeel.prefix/share/example-robot-data/robots"))
     robot = ident.load_robot(root / "panda_description/urdf/panda.urdf", locked={"panda_finger_joint1": 0.02, "panda_finger_joint2": 0.02})

@@ -36,10 +36,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
-import ident  # noqa: E402
 import heldout_check as hc  # noqa: E402
 import mujoco_plant as mp  # noqa: E402
 import textbook_fit as tb  # noqa: E402
+
+import ident  # noqa: E402
 
 
 def fits(sc: mp.Scenario) -> dict:
