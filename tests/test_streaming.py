@@ -247,3 +247,5 @@ def test_block_rows_kept_without_an_index_of_the_piece():
         c0 = int(rng.integers(0, m))
         c1 = int(rng.integers(c0, m + 1))
         np.testing.assert_array_equal(streaming.selected_rows(runs, d, c0, c1), index[(index >= c0) & (index < c1)])
+        x = int(rng.integers(-3, m + 5))  # the count before a row (the fleet's chunk sizes), beyond the ends too
+        assert streaming.selected_count(runs, d, x) == int(np.sum(index < x))

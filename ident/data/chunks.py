@@ -55,6 +55,7 @@ from .streaming import (
     merge_extremes,
     overlap,
     piece_zones,
+    selected_count,
     selected_rows,
     streamable,
     trim_samples,
@@ -111,8 +112,7 @@ class ChunkHead:
 
     def selected_before(self, x: int) -> int:
         """How many rows before row x become samples (no index of the whole log is built)."""
-        x = min(int(x), self.rows - self.trim)
-        return max(0, -(-(x - self.trim) // self.opts.decimate))
+        return selected_count([(self.trim, self.rows - self.trim)], self.opts.decimate, int(x))
 
 
 def read_head(path, robot=None, profile=None, options=None, chunk_rows: int = CHUNK_ROWS) -> tuple[ChunkHead | None, str | None]:

@@ -122,8 +122,7 @@ def cutoff_of(pieces, opts: LogOptions, path, raw=None) -> tuple[float, dict]:
         cutoff, info = cutoff_from_data(streaming.piece_head(raw, s0, e0), 1.0 / step, lowest)
     else:
         longest = max(pieces, key=lambda s_: s_.n_samples)
-        step = float(np.median(np.diff(longest.t[: STAT_SAMPLES + 1])))
-        cutoff, info = cutoff_from_data(longest.q[:STAT_SAMPLES], 1.0 / step, lowest)
+        cutoff, info = cutoff_from_data(longest.q[:STAT_SAMPLES], 1.0 / longest.dt, lowest)
     info["from"] = str(path)
     return cutoff, info
 

@@ -13,7 +13,7 @@ import numpy as np
 from ..arm.model import LOW_SPEED_SCALES
 from ..errors import DataError
 from . import conditioning as cond
-from .dataset import STAT_SAMPLES, Segment
+from .dataset import STAT_SAMPLES, Segment, sample_step
 from .options import LogOptions
 from .rawlog import RawLog
 
@@ -166,7 +166,7 @@ def uniform_pieces(raw: RawLog, opts: LogOptions, warnings: list[str], counts: d
     else:
         idx_sets.append((0, t.shape[0]))
     out = []
-    nominal_all = float(np.median(np.diff(t[: STAT_SAMPLES + 1])))
+    nominal_all = sample_step(t)
     for a, b in idx_sets:
         d = np.diff(t[a:b])
         gaps = np.flatnonzero(d > opts.max_gap * nominal_all)

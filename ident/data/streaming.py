@@ -38,7 +38,7 @@ import numpy as np
 from ..errors import DataError
 from . import conditioning as cond
 from .checks import check_plausible
-from .dataset import CHANNELS, Segment
+from .dataset import CHANNELS, Segment, sample_step
 from .options import LogOptions
 from .rawlog import RawLog
 from .segments import CLIP_FRACTION, STAT_SAMPLES, JointPlan, condition_segment, period_samples
@@ -216,7 +216,7 @@ class _RawStore:
 def _pieces(raw: _RawStore, opts: LogOptions, warnings: list[str], counts: dict, block: int):
     """Gaps split the file into uniform pieces [(start, stop, dt)] (as :func:`uniform_pieces` does)."""
     head = raw.read("t", 0, min(raw.rows, STAT_SAMPLES + 1))
-    nominal = float(np.median(np.diff(head)))
+    nominal = sample_step(head)
     gaps, longest, first_gap_t = [], 0.0, None
     for a in range(0, raw.rows - 1, block):
         t = raw.read("t", a, min(raw.rows, a + block + 1))
@@ -235,7 +235,7 @@ def _pieces(raw: _RawStore, opts: LogOptions, warnings: list[str], counts: dict,
         if e - s < 2:
             counts["short"] += e - s
             continue
-        step = float(np.median(np.diff(raw.read("t", s, min(e, s + STAT_SAMPLES + 1)))))
+        step = sample_step(raw.read("t", s, min(e, s + STAT_SAMPLES + 1)))
         dev = 0.0
         for a in range(s, e - 1, block):
             dts = np.diff(raw.read("t", a, min(e, a + block + 1)))
@@ -411,6 +411,11 @@ def condition_rows(plan: JointPlan, win: dict, rows: np.ndarray, zones) -> tuple
     return out, slow, stuck, dry
 
 
+def selected_count(runs, step: int, x: int) -> int:
+    """How many of every `step`-th sample of each run [a, b) (counted from a) lie before row x."""
+    return sum(max(0, -(-(min(x, b) - a) // step)) for a, b in runs)
+
+
 def selected_rows(runs, step: int, c0: int, c1: int) -> np.ndarray:
     """Rows in [c0, c1) of every `step`-th sample of each run [a, b) (counted from a), ascending:
     the samples a block keeps, without an index of the whole piece (8 bytes a sample out)."""
@@ -418,8 +423,7 @@ def selected_rows(runs, step: int, c0: int, c1: int) -> np.ndarray:
     for a, b in runs:
         lo, hi = max(a, c0), min(b, c1)
         if lo < hi:
-            first = a + -(-(lo - a) // step) * step
-            parts.append(np.arange(first, hi, step))
+            parts.append(np.arange(a + selected_count([(a, b)], step, lo) * step, hi, step))
     return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
 
 

@@ -184,8 +184,8 @@ def _read_ahead(batches, depth: int):
     """Iterate `batches` with a thread pulling up to `depth` items ahead.
 
     pyarrow parses without the GIL, so on a machine with a second core the text of the next
-    blocks is parsed while the current one is converted and stored (the parse was a fifth of the block
-    path's time). An error of the reader is raised here, at the item where it occurred; a caller
+    blocks is parsed while the current one is converted and stored (the parse was a fifth of the
+    block path's time). An error of the reader is raised here, at the item where it occurred; a caller
     that stops early (an error further on, or the generator closed) stops the thread too.
     """
     q: queue.Queue = queue.Queue(maxsize=depth)
