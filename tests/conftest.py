@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import importlib.metadata
+import os
+import tempfile
 from pathlib import Path
 
 import pytest
@@ -49,3 +51,8 @@ def cluster():
     c = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None)
     yield c
     c.close()
+
+
+# Kernels specialised to an arm (ident.arm.specialise) are compiled into a cache folder: the
+# suite uses a folder of its own, so it neither reads nor fills the user's cache.
+os.environ.setdefault("IDENT_CACHE", tempfile.mkdtemp(prefix="ident-test-kernels-"))

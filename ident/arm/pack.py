@@ -17,6 +17,16 @@ from .kernels import _BLOCK, _INLINE, _OPTS, _body_entries, _motion_blocks, use_
 
 
 @njit(**_INLINE)
+def _centre_sum(e0, e1, e2, e3, e4, e5, e6, e7, e8, e9, c0, c1, c2, c3, c4, c5, c6, c7, c8, c9):
+    """One body's share of the centre's fit, ``e . c`` over its 10 entries.
+
+    Summed as a short tree: one long chain of dependent adds would cost a third of the regressor.
+    """
+    return (((e0 * c0 + e1 * c1) + (e2 * c2 + e3 * c3)) + ((e4 * c4 + e5 * c5) + (e6 * c6 + e7 * c7))
+            + (e8 * c8 + e9 * c9))
+
+
+@njit(**_INLINE)
 def _pack_range(q, dq, ddq, tau, signals, keep, rowpos, center, centered, parent, jtype, Rf, pf, ax, anc, a0, kept, nrigid, tsrc,
                 ncol, offs, out, start, stop):
     """Packed compression rows of samples start..stop-1 (see :func:`pack_chunk`), with scratch of its own."""
@@ -67,12 +77,10 @@ def _pack_range(q, dq, ddq, tau, signals, keep, rowpos, center, centered, parent
                 out[pos] = e9
                 pos += kept[k, 9]
                 if centered:
-                    # body by body in a short tree: one long chain of dependent adds would cost
-                    # a third of the regressor
                     f = 10 * k
-                    fit += (((e0 * center[j, f] + e1 * center[j, f + 1]) + (e2 * center[j, f + 2] + e3 * center[j, f + 3]))
-                            + ((e4 * center[j, f + 4] + e5 * center[j, f + 5]) + (e6 * center[j, f + 6] + e7 * center[j, f + 7]))
-                            + (e8 * center[j, f + 8] + e9 * center[j, f + 9]))
+                    fit += _centre_sum(e0, e1, e2, e3, e4, e5, e6, e7, e8, e9, center[j, f], center[j, f + 1], center[j, f + 2],
+                                       center[j, f + 3], center[j, f + 4], center[j, f + 5], center[j, f + 6], center[j, f + 7],
+                                       center[j, f + 8], center[j, f + 9])
             for col in range(nrigid[j], c):
                 v = signals[s, j, tsrc[j, col]]
                 out[at + col] = v

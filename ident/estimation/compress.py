@@ -48,6 +48,7 @@ import numpy as np
 import scipy.linalg
 from scipy.linalg import lapack
 
+from ..arm import specialise
 from ..arm.base import BaseParameters, base_parameters
 from ..arm.dynamics import term_columns
 from ..arm.model import DRY_FRICTION_TERMS, Robot, kernel_arrays, parse_terms
@@ -175,7 +176,7 @@ class Compressor(GramRoute):
         # Pickled to send compressed data between machines: the kernel's packing buffers and
         # caches (megabytes) are rebuilt on first use, so only the triangles and counts travel.
         state = dict(self.__dict__)
-        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now", "_ls_memo"):
+        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now", "_ls_memo", "_special_text", "_want_special"):
             state.pop(k, None)
         return state
 
@@ -219,6 +220,9 @@ class Compressor(GramRoute):
         if term_signals is not None:
             term_signals = self._check_signals(term_signals, q.shape, where)
         self._rows_now = self.rows.copy()  # equations folded so far, this log's included
+        # long logs (this one, or all so far) get the arm's own kernel once it is compiled; its
+        # rows are bit for bit the general kernel's, so when the switch happens changes nothing
+        self._want_special = specialise.enabled() and self.samples + q.shape[0] >= specialise.SPECIALISE_FROM
         with single_thread_blas():
             ts = term_signals
             if self.blocks is None:
@@ -302,9 +306,26 @@ class Compressor(GramRoute):
         sc = term_columns(self.terms, dq[start:stop], ddq[start:stop]) if sig is None else sig[start:stop]
         cm = self._center_matrix(center)
         counts, offs = np.empty(n, dtype=np.int64), np.empty(n, dtype=np.int64)
-        pack_chunk(q[start:stop], dq[start:stop], ddq[start:stop], tau[start:stop], sc, kc, cm, center is not None,
-                           *kargs, kept, nrigid, tsrc, ncol, buf, counts, offs)
+        args = (q[start:stop], dq[start:stop], ddq[start:stop], tau[start:stop], sc, kc, cm, center is not None)
+        mod = self.specialised_kernel() if getattr(self, "_want_special", False) else None
+        if mod is not None and all(a.flags.c_contiguous for a in args[:7]):
+            specialise.pack_rows(mod, *args, tsrc, ncol, buf, counts, offs)
+        else:
+            pack_chunk(*args, *kargs, kept, nrigid, tsrc, ncol, buf, counts, offs)
         return [buf[offs[j] : offs[j] + counts[j] * (ncol[j] + 1)].reshape(counts[j], ncol[j] + 1) for j in range(n)]
+
+    def specialised_kernel(self, wait: bool = False):
+        """This arm's own packing kernel (:mod:`ident.arm.specialise`): the compiled module, or None
+        while it compiles (``wait=True`` waits), when compiling failed, or when the arm is too large
+        for one. Logs of :data:`ident.arm.specialise.SPECIALISE_FROM` samples or more ask for it
+        themselves; asking earlier (say before a batch of long logs) only starts the compilation
+        sooner. The rows it packs are bit for bit the general kernel's."""
+        text = getattr(self, "_special_text", None)
+        if text is None:
+            kept, nrigid, _, ncol, kargs = self._layout()
+            text = specialise.source(*kargs, kept, nrigid, ncol)
+            self._special_text = text = text if text.count("\n") <= specialise.MAX_LINES else ""
+        return specialise.kernel(text, wait=wait) if text else None
 
     def _center_matrix(self, center) -> np.ndarray:
         """The centre per joint in regressor-column positions (n, 10 n + k), zero outside the base set."""
