@@ -449,6 +449,10 @@ def pack_rows(mod, q, dq, ddq, tau, signals, keep, center, centered, tsrc, ncol,
 
 def _compile_main(argv) -> int:
     """Helper process: import (and so compile into numba's cache) the generated module argv[0]."""
+    try:
+        os.nice(10)  # the fit that asked goes on meanwhile: it comes first
+    except OSError:
+        pass
     _import(Path(argv[0]))
     return 0
 

@@ -176,7 +176,7 @@ class Compressor(GramRoute):
         # Pickled to send compressed data between machines: the kernel's packing buffers and
         # caches (megabytes) are rebuilt on first use, so only the triangles and counts travel.
         state = dict(self.__dict__)
-        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now", "_ls_memo", "_special_text", "_want_special"):
+        for k in ("_packing", "_buf", "_all_kept", "_cm_for", "_cm", "_rows_now", "_ls_memo", "_special_text", "_special_mod", "_want_special"):
             state.pop(k, None)
         return state
 
@@ -320,12 +320,16 @@ class Compressor(GramRoute):
         for one. Logs of :data:`ident.arm.specialise.SPECIALISE_FROM` samples or more ask for it
         themselves; asking earlier (say before a batch of long logs) only starts the compilation
         sooner. The rows it packs are bit for bit the general kernel's."""
+        mod = getattr(self, "_special_mod", None)
+        if mod is not None:  # asked once a chunk: no hashing of the source once it is ready
+            return mod
         text = getattr(self, "_special_text", None)
         if text is None:
             kept, nrigid, _, ncol, kargs = self._layout()
             text = specialise.source(*kargs, kept, nrigid, ncol)
             self._special_text = text = text if text.count("\n") <= specialise.MAX_LINES else ""
-        return specialise.kernel(text, wait=wait) if text else None
+        self._special_mod = mod = specialise.kernel(text, wait=wait) if text else None
+        return mod
 
     def _center_matrix(self, center) -> np.ndarray:
         """The centre per joint in regressor-column positions (n, 10 n + k), zero outside the base set."""
